@@ -293,7 +293,7 @@ class TestSingularCases:
 
     def test_parabolic_refused_forward_reported_backward(self):
         with pytest.raises(ValidationError, match=r"eccentricity\[1\].*parabolic.*1 - 1e-9"):
-            elements_to_cartesian(1.0, [1.0, 1.0], [0.5, 1.0], 0.1, 0.0, 0.0, 0.0)
+            elements_to_cartesian(1.0, [1.0, 1.0], [0.5, 1.0 + 2e-15], 0.1, 0.0, 0.0, 0.0)
         # escape speed exactly: a parabola
         q = 2.0
         r = np.array([[q, 0.0, 0.0], [0.0, 3.0, 0.0]])

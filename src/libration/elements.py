@@ -76,8 +76,9 @@ __all__ = [
     "EQUATORIAL_TOLERANCE",
 ]
 
-#: |e - 1| below this is treated as exactly parabolic.
-PARABOLIC_TOLERANCE = 1e-15
+#: |e - 1| below this is treated as exactly parabolic.  A few ulps: the eccentricity of
+#: a state at exactly escape speed comes out within ~2e-15 of 1 after roundoff.
+PARABOLIC_TOLERANCE = 4e-15
 #: eccentricity below this is treated as circular (argument of periapsis set to 0).
 CIRCULAR_TOLERANCE = 1e-14
 #: sin(inclination) below this is treated as equatorial (ascending node set to 0).
