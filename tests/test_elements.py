@@ -313,8 +313,20 @@ class TestSingularCases:
     def test_rectilinear_and_origin_refused(self):
         with pytest.raises(ValidationError, match=r"position\[1\] and velocity\[1\].*parallel"):
             cartesian_to_elements(1.0, [[1.0, 0, 0], [1.0, 2.0, 3.0]], [[0, 1.0, 0], [2.0, 4.0, 6.0]])
+        with pytest.raises(ValidationError, match=r"velocity\[0\] must be non-zero"):
+            cartesian_to_elements(1.0, [1.0, 0.0, 0.0], [0.0, 0.0, 0.0])
         with pytest.raises(ValidationError, match=r"position\[0\].*non-zero"):
             cartesian_to_elements(1.0, [0.0, 0.0, 0.0], [1.0, 0.0, 0.0])
+
+
+def test_empty_inputs_give_empty_outputs():
+    r, v = elements_to_cartesian(1.0, [], 0.1, 0.1, 0.0, 0.0, 0.0)
+    assert r.shape == (0, 3) and v.shape == (0, 3)
+    assert cartesian_to_elements(1.0, np.zeros((0, 3)), np.zeros((0, 3))).mean_anomaly.shape == (0,)
+    for frame in ("jacobi", "heliocentric"):
+        m, p, u = state_from_elements(2.0, [], [], [], [], [], [], [], G=1.0, frame=frame)
+        assert m.tolist() == [2.0] and np.all(p == 0) and np.all(u == 0)
+        assert elements_from_state(m, p, u, 1, 1.0, frame=frame).eccentricity.shape == (0,)
 
 
 class TestValidation:

@@ -140,7 +140,8 @@ def _vector(field: str, value: ArrayLike) -> NDArray[np.float64]:
 def _broadcast(**fields: ArrayLike) -> tuple[NDArray[np.float64], ...]:
     """Convert to 1-D float64 arrays of one common length (scalars broadcast)."""
     arrays = {name: _vector(name, value) for name, value in fields.items()}
-    k = max(a.size for a in arrays.values())
+    lengths = [a.size for a in arrays.values() if a.size != 1]
+    k = lengths[0] if lengths else 1
     out = []
     for name, arr in arrays.items():
         if arr.size not in (1, k):
@@ -584,8 +585,9 @@ def cartesian_to_elements(
     if bad.any():
         k0 = int(np.flatnonzero(bad)[0])
         raise ValidationError(
-            f"position[{k0}] and velocity[{k0}] must not be parallel (a rectilinear orbit has "
-            f"no orbital plane), got angular momentum {float(h[k0])!r}"
+            f"position[{k0}] and velocity[{k0}] must not be parallel, and velocity[{k0}] must be "
+            f"non-zero (a rectilinear orbit has no orbital plane), got specific angular momentum "
+            f"{float(h[k0])!r}"
         )
 
     # Orientation of the orbital plane.
