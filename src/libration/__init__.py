@@ -2,6 +2,7 @@
 from ._version import __version__
 from .exceptions import (ConvergenceError, FileFormatError, LibrationError, MethodError, ScenarioError,
                          SingularityError, UnitError, ValidationError)
+from .ensemble import Ensemble
 from .methods import METHODS, StepReport
 from .propagator import Propagator
 from .system import System
@@ -11,6 +12,7 @@ __all__ = [
     "__version__",
     "System",
     "Propagator",
+    "Ensemble",
     "StepReport",
     "METHODS",
     "UNIT_SYSTEMS",

@@ -1,0 +1,254 @@
+"""Ensembles: determinism across executors, durability (killed workers, failures), outputs."""
+from __future__ import annotations
+
+import json
+import logging
+import math
+import multiprocessing
+import os
+import signal
+import threading
+import time
+import warnings
+from concurrent.futures import ProcessPoolExecutor
+
+import numpy as np
+import pytest
+
+import libration as lb
+from libration.ensemble import Ensemble, apply_parameters, ensemble_options
+
+TWO_PI = 2.0 * math.pi
+
+
+def three_body() -> lb.System:
+    # An invented star with two light planets (nbody units: G = 1, inner period 2 pi).
+    return lb.System.from_elements(1.0, [4e-5, 2e-5], [1.0, 1.5], [0.01, 0.02], [0.0, 0.01], [0.0, 1.0],
+                                   [0.0, 2.0], [0.0, 2.5], units="nbody", names=["star", "inner", "outer"])
+
+
+def small_grid(directory, **kwargs) -> Ensemble:
+    settings = dict(until=20 * TWO_PI, method="yoshida4", step=TWO_PI / 50, sample_every=TWO_PI / 5,
+                    grid={"outer.semi_major_axis": [1.3, 1.4, 1.5, 1.6],
+                          "outer.eccentricity": [0.0, 0.05, 0.1, 0.15]})
+    settings.update(kwargs)
+    return Ensemble(three_body(), directory, **settings)
+
+
+def comparable(table: np.ndarray) -> np.ndarray:
+    """The results without the wall-clock column (the one field allowed to differ)."""
+    names = [n for n in table.dtype.names if n != "wall_seconds"]
+    return table[names]
+
+
+def assert_tables_equal(ta: np.ndarray, tb: np.ndarray) -> None:
+    ta, tb = comparable(ta), comparable(tb)
+    assert ta.dtype == tb.dtype
+    for name in ta.dtype.names:
+        if ta.dtype[name].kind == "f":
+            # Bit patterns, so that nan == nan and -0.0 != 0.0.
+            assert np.array_equal(ta[name].view(np.uint64), tb[name].view(np.uint64)), name
+        else:
+            assert np.array_equal(ta[name], tb[name]), name
+
+
+def assert_bitwise_equal(a: Ensemble, b: Ensemble) -> None:
+    assert_tables_equal(a.results(), b.results())
+    for i in range(len(a)):
+        sa, sb = a.final_system(i), b.final_system(i)
+        for field in ("mass", "position", "velocity"):
+            assert np.array_equal(getattr(sa, field).view(np.uint64), getattr(sb, field).view(np.uint64))
+
+
+def forkserver_pool(workers: int) -> ProcessPoolExecutor:
+    methods = multiprocessing.get_all_start_methods()
+    context = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+    return ProcessPoolExecutor(max_workers=workers, mp_context=context)
+
+
+# ------------------------------------------------------------------------------- determinism
+def test_sequential_pool_and_dask_give_identical_members(tmp_path):
+    distributed = pytest.importorskip("distributed")
+    sequential = small_grid(tmp_path / "sequential")
+    table = sequential.run("sequential")
+    assert len(table) == 16 and set(table["status"]) == {"finished"}
+    assert np.all(table["time"] == 20 * TWO_PI)
+    pooled = small_grid(tmp_path / "pool")
+    pooled.run(workers=2)
+    assert_bitwise_equal(sequential, pooled)
+
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                       dashboard_address=None, silence_logs=logging.ERROR)
+    try:
+        with distributed.Client(cluster) as client:
+            on_dask = small_grid(tmp_path / "dask")
+            on_dask.run(client)
+            processes = {json.load(open(os.path.join(on_dask.member_directory(i), "summary.json")))["process"]
+                         for i in range(16)}
+            assert len(processes) == 2 and os.getpid() not in {int(p.rsplit(":", 1)[1]) for p in processes}
+    finally:
+        cluster.close()
+    assert_bitwise_equal(sequential, on_dask)
+
+
+def test_member_order_does_not_matter(tmp_path):
+    forward = small_grid(tmp_path / "forward", grid={"outer.semi_major_axis": [1.3, 1.6]}, until=5 * TWO_PI)
+    backward = small_grid(tmp_path / "backward", grid={"outer.semi_major_axis": [1.6, 1.3]}, until=5 * TWO_PI)
+    ta, tb = forward.run("sequential"), backward.run("sequential")
+    assert np.array_equal(comparable(ta)[::-1]["energy_error"], comparable(tb)["energy_error"])
+    assert np.array_equal(forward.final_system(0).position, backward.final_system(1).position)
+
+
+def test_perturbations_depend_on_seed_and_index_only(tmp_path):
+    base = three_body()
+    spread = {"outer.mean_anomaly": 1e-3, "inner.x": 1e-9}
+    four = Ensemble(base, tmp_path / "a", until=1.0, step=0.01, perturb=spread, count=4, seed=7)
+    eight = Ensemble(base, tmp_path / "b", until=1.0, step=0.01, perturb=spread, count=8, seed=7)
+    other = Ensemble(base, tmp_path / "c", until=1.0, step=0.01, perturb=spread, count=4, seed=8)
+    assert four.parameter_sets == eight.parameter_sets[:4]
+    assert four.parameter_sets != other.parameter_sets
+    values = np.array([p["outer.mean_anomaly"] for p in eight.parameter_sets])
+    assert np.all(np.abs(values - 2.5) < 6e-3) and np.std(values) > 1e-4
+
+
+# ------------------------------------------------------------------------------- durability
+def test_killed_worker_leaves_member_resumable(tmp_path):
+    settings = dict(grid={"outer.semi_major_axis": [1.4, 1.5]}, until=300 * TWO_PI, step=TWO_PI / 100,
+                    sample_every=TWO_PI / 10, checkpoint_interval=0.02)
+    reference = small_grid(tmp_path / "reference", **settings)
+    reference.run("sequential")
+
+    victim = small_grid(tmp_path / "killed", **settings)
+    member = victim.member_directory(0)
+    pool = forkserver_pool(1)
+    killed = []
+
+    def kill_when_checkpointed():
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and not killed:
+            if (os.path.exists(os.path.join(member, "state.ckpt"))
+                    and not os.path.exists(os.path.join(member, "summary.json"))):
+                for pid in list(pool._processes):  # the pool's worker processes
+                    os.kill(pid, signal.SIGKILL)
+                    killed.append(pid)
+            time.sleep(0.002)
+
+    killer = threading.Thread(target=kill_when_checkpointed)
+    killer.start()
+    try:
+        with pytest.warns(RuntimeWarning, match="interrupted"):
+            victim.run(pool)
+    finally:
+        killer.join()
+        pool.shutdown(wait=True)
+    assert killed, "the worker finished before it could be killed"
+    assert victim.status().get("interrupted", 0) >= 1
+    manifest = json.load(open(victim.manifest_path))
+    assert manifest["members"][0]["status"] == "interrupted"
+
+    resumed = small_grid(tmp_path / "killed", **settings)  # the same script run again
+    table = resumed.run(workers=1)
+    assert set(table["status"]) == {"finished"}
+    summary = json.load(open(os.path.join(member, "summary.json")))
+    assert summary["resumed_at"] is not None and 0 < summary["resumed_at"] < 300 * TWO_PI
+    assert_bitwise_equal(reference, resumed)
+
+
+def test_failing_member_is_reported_and_others_complete(tmp_path):
+    ensemble = small_grid(tmp_path / "e", grid={"outer.eccentricity": [0.0, 0.05, 1.5, 0.1]}, until=5 * TWO_PI)
+    table = ensemble.run("sequential")
+    assert list(table["status"]) == ["finished", "finished", "failed", "finished"]
+    assert "eccentricity" in table["message"][2] and "ValidationError" in table["message"][2]
+    assert np.all(table["time"][[0, 1, 3]] == 5 * TWO_PI) and math.isnan(table["time"][2])
+    manifest = json.load(open(ensemble.manifest_path))
+    assert manifest["counts"] == {"finished": 3, "failed": 1}
+    assert "eccentricity" in manifest["members"][2]["message"]
+
+
+def test_rerun_skips_finished_members(tmp_path):
+    ensemble = small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.4, 1.5]}, until=5 * TWO_PI)
+    ensemble.run("sequential")
+    path = os.path.join(ensemble.member_directory(1), "summary.json")
+    before = os.stat(path).st_mtime_ns
+    calls = []
+    again = small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.4, 1.5]}, until=5 * TWO_PI)
+    again.run("sequential", progress=lambda done, total: calls.append((done, total)))
+    assert os.stat(path).st_mtime_ns == before
+    assert calls == [(2, 2)]
+
+
+def test_directory_of_another_ensemble_is_refused(tmp_path):
+    small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.4]}, until=TWO_PI).run("sequential")
+    other = small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.45]}, until=TWO_PI)
+    with pytest.raises(lb.ValidationError, match="different ensemble"):
+        other.run("sequential")
+
+
+# ---------------------------------------------------------------------------------- outputs
+def test_results_files_and_reopening(tmp_path):
+    ensemble = small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.4, 1.5],
+                                               "outer.eccentricity": [0.0, 0.1]}, until=3 * TWO_PI)
+    table = ensemble.run("sequential")
+    with open(os.path.join(ensemble.directory, "summary.csv")) as fh:
+        header = fh.readline().strip().split(",")
+        first = fh.readline().strip().split(",")
+    assert header[:3] == ["index", "outer.semi_major_axis", "outer.eccentricity"]
+    column = header.index("energy_error")
+    assert float(first[column]) == table["energy_error"][0]  # written exactly
+    h5py = pytest.importorskip("h5py")
+    with h5py.File(ensemble.to_hdf5(), "r") as fh:
+        stored = fh["summary"][()]
+    assert np.array_equal(stored["energy_error"], table["energy_error"])
+    assert stored["status"][0] == b"finished"
+    reopened = Ensemble.open(ensemble.directory)
+    assert reopened.fingerprint == ensemble.fingerprint
+    assert_tables_equal(reopened.results(), table)
+    pandas = pytest.importorskip("pandas")
+    frame = ensemble.dataframe()
+    assert isinstance(frame, pandas.DataFrame) and len(frame) == 4
+    pytest.importorskip("matplotlib")
+    png = ensemble.plot_map("outer.semi_major_axis", "outer.eccentricity", value="outer.max_eccentricity")
+    with open(png, "rb") as fh:
+        assert fh.read(8) == b"\x89PNG\r\n\x1a\n"
+
+
+def test_apply_parameters_sets_elements_mass_and_coordinates():
+    base = three_body()
+    changed = apply_parameters(base, {"outer.semi_major_axis": 1.7, "outer.eccentricity": 0.2, "inner.mass": 1e-4,
+                                      "2.z": 0.05})
+    elements = changed.elements(frame="jacobi")
+    assert changed.mass[1] == 1e-4
+    assert changed.position[2, 2] == 0.05
+    before = base.elements(frame="jacobi")
+    assert abs(before.semi_major_axis[0] - 1.0) < 1e-12
+    changed_no_z = apply_parameters(base, {"outer.semi_major_axis": 1.7, "outer.eccentricity": 0.2})
+    el = changed_no_z.elements(frame="jacobi")
+    assert abs(el.semi_major_axis[1] - 1.7) < 1e-12 and abs(el.eccentricity[1] - 0.2) < 1e-12
+    assert abs(el.semi_major_axis[0] - before.semi_major_axis[0]) < 1e-12
+    assert elements.semi_major_axis.shape == (2,)
+    with pytest.raises(lb.ValidationError, match="no body named"):
+        apply_parameters(base, {"pluto.mass": 1.0})
+    with pytest.raises(lb.ValidationError, match="field one of"):
+        apply_parameters(base, {"outer.colour": 1.0})
+
+
+def test_misuse_raises_before_anything_runs(tmp_path):
+    with pytest.raises(lb.ValidationError, match="exactly one of"):
+        Ensemble(three_body(), tmp_path, until=1.0, step=0.1)
+    with pytest.raises(lb.MethodError):
+        Ensemble(three_body(), tmp_path, until=1.0, method="no-such-method", grid={"outer.mass": [1e-5]})
+    with pytest.raises(lb.ValidationError, match="stop_on"):
+        Ensemble(three_body(), tmp_path, until=1.0, step=0.1, grid={"outer.mass": [1e-5]}, stop_on=["boredom"])
+    with pytest.raises(lb.ValidationError, match="no body named"):
+        Ensemble(three_body(), tmp_path, until=1.0, step=0.1, grid={"pluto.mass": [1e-5]})
+
+
+def test_ensemble_table_of_a_scenario():
+    options = ensemble_options({"grid": {"b.semi_major_axis": {"start": 1.0, "stop": 2.0, "count": 5},
+                                         "b.eccentricity": [0.0, 0.1]}, "stop_on": ["encounter"]})
+    assert options["grid"]["b.semi_major_axis"] == [1.0, 1.25, 1.5, 1.75, 2.0]
+    assert options["stop_on"] == ["encounter"]
+    with pytest.raises(lb.ScenarioError, match="unknown key"):
+        ensemble_options({"gird": {}})
+    with pytest.raises(lb.ScenarioError, match="count"):
+        ensemble_options({"grid": {"b.mass": {"start": 0, "stop": 1, "count": 0}}})
