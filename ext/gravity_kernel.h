@@ -1,111 +1,348 @@
 /* Direct-summation gravity: the hot loop of libration.
  *
- * Layout: structure of arrays (x, y, z, gm) for speed; targets are processed in
- * blocks, and inside a block the loop over targets is the innermost one, so the
- * compiler vectorises across *targets*.  Every target's sum over sources still runs
- * in the fixed order j = 0, 1, ..., n_active - 1, so the result is bitwise the same
- * whatever the vector width, block size or thread count.
+ * Layout.  Each call first copies the positions into a structure of arrays (x, y, z;
+ * and G*m for the massive bodies, the sources j < n_active).  Targets are then taken
+ * in tiles of a few vector registers' width; a tile keeps its accumulators in
+ * registers while it walks over all the sources (each source broadcast to every
+ * lane), so a call costs O(n) copying plus the O(n_active * n) sum, with no
+ * per-source memory traffic for the accumulators.  This keeps the test-particle
+ * case (few sources, very many targets) near the per-interaction rate of the full one.
  *
- * IEEE safety: the build uses -fno-math-errno -fno-trapping-math -ffp-contract=off
- * (never -ffast-math), so sqrt and division are correctly rounded and identical on
- * every code path.  On x86-64 with gcc, the block function is compiled for AVX-512,
- * AVX2 and baseline x86-64 and the best clone is chosen at load time (target_clones),
- * so a portable build still uses the wide vector units where present.
+ * Exactness.  Every target's sum runs over the sources in index order
+ * j = 0, 1, ..., n_active - 1 (its own index skipped), one correctly rounded IEEE
+ * operation after another: sqrt and division are exact roundings, the build uses
+ * -fno-math-errno -fno-trapping-math -ffp-contract=off (never -ffast-math), and
+ * vector lanes never mix.  So the result is bitwise the same for every vector width
+ * (the SSE2, AVX2 and AVX-512 variants below), every tile width and every thread
+ * count, and the same as a plain scalar double loop in that order.
+ *
+ * Speed.  The sum needs one sqrt and one division per interaction; both run on the
+ * same divider unit, whose throughput bounds the kernel (on the Xeon this was tuned
+ * on, about 0.55 ns per sqrt and 0.5 ns per division per double, so ~9.5e8
+ * interactions/s per core at best).  Everything else is arranged to stay off it.
+ *
+ * Dispatch.  On x86-64 with gcc or clang the tile loop is compiled for SSE2 (the
+ * x86-64 baseline), AVX2 and AVX-512F with intrinsics, and the variant named by
+ * lb_gravity_isa_best() is chosen at run time, so a portable build still uses the wide
+ * vector units.  Elsewhere (or with LIBRATION_NO_CLONES) one plain C variant is built.
  */
 #ifndef LIBRATION_GRAVITY_KERNEL_H
 #define LIBRATION_GRAVITY_KERNEL_H
 
 #include <math.h>
 #include <stddef.h>
-
-#if defined(__GNUC__) && !defined(__clang__) && defined(__x86_64__) && defined(__linux__) \
-    && !defined(LIBRATION_NATIVE) && !defined(LIBRATION_NO_CLONES)
-#  define LB_CLONES __attribute__((target_clones("avx512f", "avx2", "default")))
-#else
-#  define LB_CLONES
+#ifdef _OPENMP
+#  include <omp.h>
 #endif
 
-/* Targets per block: 6 arrays of this many doubles stay in the L1/L2 cache. */
-#define LB_GRAVITY_BLOCK 256
-/* Below this many interactions a second thread costs more than it saves
- * (OpenMP start-up is a few microseconds; see bench/gravity.py). */
-#define LB_PARALLEL_MIN_INTERACTIONS 250000.0
+#if (defined(__GNUC__) || defined(__clang__)) && defined(__x86_64__) \
+    && !defined(LIBRATION_NATIVE) && !defined(LIBRATION_NO_CLONES)
+#  define LB_DISPATCH 1
+#else
+#  define LB_DISPATCH 0
+#endif
 
-#define LB_GRAVITY_SEGMENT(LO, HI)                                   \
-    for (ptrdiff_t i = (LO); i < (HI); i++) {                        \
-        double dx = xj - x[i];                                       \
-        double dy = yj - y[i];                                       \
-        double dz = zj - z[i];                                       \
-        double r2 = dx * dx + dy * dy + dz * dz + eps2;              \
-        double f = gmj / (r2 * sqrt(r2));                            \
-        ax[i] += f * dx;                                             \
-        ay[i] += f * dy;                                             \
-        az[i] += f * dz;                                             \
-    }
+/* Target vectors per tile in each variant (tuned with bench/gravity.py). */
+#ifndef LB_K_SSE2
+#  define LB_K_SSE2 2
+#endif
+#ifndef LB_K_AVX2
+#  define LB_K_AVX2 2
+#endif
+#ifndef LB_K_AVX512
+#  define LB_K_AVX512 1
+#endif
 
-/* Accelerations of targets [i0, i1) from sources [0, n_active).  A target never
- * acts on itself (the source loop is split around it).  ax, ay, az are overwritten. */
-LB_CLONES
-static void lb_gravity_block(const double *restrict x, const double *restrict y,
-                             const double *restrict z, const double *restrict gm,
-                             ptrdiff_t n_active, ptrdiff_t i0, ptrdiff_t i1, double eps2,
-                             double *restrict ax, double *restrict ay, double *restrict az)
-{
-    for (ptrdiff_t i = i0; i < i1; i++) {
-        ax[i] = 0.0;
-        ay[i] = 0.0;
-        az[i] = 0.0;
-    }
-    for (ptrdiff_t j = 0; j < n_active; j++) {
-        const double xj = x[j], yj = y[j], zj = z[j], gmj = gm[j];
-        ptrdiff_t mid = j < i0 ? i0 : (j > i1 ? i1 : j);
-        ptrdiff_t after = j + 1 < i0 ? i0 : (j + 1 > i1 ? i1 : j + 1);
-        LB_GRAVITY_SEGMENT(i0, mid)
-        LB_GRAVITY_SEGMENT(after, i1)
-    }
+/* Below this many interactions (n_active * n) a second thread costs more than it
+ * saves: an OpenMP parallel region costs a few microseconds, the kernel does about
+ * 8e8 interactions per second per core (bench/gravity.py measures both). */
+#define LB_PARALLEL_MIN_INTERACTIONS 65536.0
+
+/* Instruction-set variants of the tile loop (lb_gravity_isa_* return these). */
+#define LB_ISA_BASELINE 0
+#define LB_ISA_AVX2 1
+#define LB_ISA_AVX512 2
+
+/* One tile variant.  VT is a vector of LANES doubles and a tile holds K vectors of
+ * targets; the operation macros map to intrinsics, or to plain C for VT = double.
+ * Every variant performs, lane by lane, exactly the scalar operations
+ *   dx = xj - xi; ...; r2 = ((dx*dx + dy*dy) + dz*dz) + eps2;
+ *   f = gmj / (r2 * sqrt(r2)); ax += f * dx; ...
+ * for j = 0, 1, ..., n_active - 1 in that order, so all of them agree to the bit.
+ * The sources that lie inside the tile itself (at most one tile's worth) are added
+ * by the same operations in scalar code, skipping each target's own index.
+ * Targets [t0, t1) are read from x, y, z (t0 a multiple of the tile width); the
+ * function returns the first of them whose acceleration is not finite, or -1. */
+#define LB_DEFINE_TILES(NAME, ATTRIBUTE, VT, LANES, K, SET1, LOADU, STOREU, ADD, SUB, MUL,  \
+                        DIV, SQRT)                                                        \
+ATTRIBUTE static ptrdiff_t NAME(const double *restrict x, const double *restrict y,        \
+                                const double *restrict z, const double *restrict gm,       \
+                                ptrdiff_t n_active, ptrdiff_t t0, ptrdiff_t t1, double eps2, \
+                                double *restrict acc)                                      \
+{                                                                                         \
+    enum { T = (LANES) * (K) };                                                            \
+    const VT veps2 = SET1(eps2), zero = SET1(0.0);                                         \
+    VT check = zero; /* stays finite while every stored value is finite */                 \
+    ptrdiff_t first_bad = -1;                                                              \
+    for (ptrdiff_t i0 = t0; i0 < t1; i0 += T) {                                            \
+        double bx[T], by[T], bz[T];                                                        \
+        VT tx[K], ty[K], tz[K], ax[K], ay[K], az[K];                                       \
+        const int width = (int)(t1 - i0 < T ? t1 - i0 : T);                                \
+        const double *px = x + i0, *py = y + i0, *pz = z + i0;                             \
+        if (width < T) { /* the last, partial tile: pad with copies of its first body */   \
+            for (int l = 0; l < T; l++) {                                                  \
+                bx[l] = x[i0 + (l < width ? l : 0)];                                       \
+                by[l] = y[i0 + (l < width ? l : 0)];                                       \
+                bz[l] = z[i0 + (l < width ? l : 0)];                                       \
+            }                                                                              \
+            px = bx;                                                                       \
+            py = by;                                                                       \
+            pz = bz;                                                                       \
+        }                                                                                  \
+        for (int k = 0; k < (K); k++) {                                                    \
+            tx[k] = LOADU(px + k * (LANES));                                               \
+            ty[k] = LOADU(py + k * (LANES));                                               \
+            tz[k] = LOADU(pz + k * (LANES));                                               \
+            ax[k] = zero;                                                                  \
+            ay[k] = zero;                                                                  \
+            az[k] = zero;                                                                  \
+        }                                                                                  \
+        const ptrdiff_t own0 = i0 < n_active ? i0 : n_active;                              \
+        const ptrdiff_t own1 = i0 + T < n_active ? i0 + T : n_active;                      \
+        for (int pass = 0; pass < 2; pass++) {                                             \
+            const ptrdiff_t j0 = pass == 0 ? 0 : own1, j1 = pass == 0 ? own0 : n_active;   \
+            for (ptrdiff_t j = j0; j < j1; j++) {                                          \
+                const VT xj = SET1(x[j]), yj = SET1(y[j]), zj = SET1(z[j]);                \
+                const VT gmj = SET1(gm[j]);                                                \
+                for (int k = 0; k < (K); k++) {                                            \
+                    const VT dx = SUB(xj, tx[k]), dy = SUB(yj, ty[k]), dz = SUB(zj, tz[k]);\
+                    const VT r2 = ADD(ADD(ADD(MUL(dx, dx), MUL(dy, dy)), MUL(dz, dz)), veps2);\
+                    const VT f = DIV(gmj, MUL(r2, SQRT(r2)));                              \
+                    ax[k] = ADD(ax[k], MUL(f, dx));                                        \
+                    ay[k] = ADD(ay[k], MUL(f, dy));                                        \
+                    az[k] = ADD(az[k], MUL(f, dz));                                        \
+                }                                                                          \
+            }                                                                              \
+            if (pass == 0 && own0 < own1) {                                                \
+                /* Sources inside the tile, in index order, scalar, self skipped. */       \
+                double cx[T], cy[T], cz[T], ox[T], oy[T], oz[T];                           \
+                for (int k = 0; k < (K); k++) {                                            \
+                    STOREU(cx + k * (LANES), ax[k]);                                       \
+                    STOREU(cy + k * (LANES), ay[k]);                                       \
+                    STOREU(cz + k * (LANES), az[k]);                                       \
+                    STOREU(ox + k * (LANES), tx[k]);                                       \
+                    STOREU(oy + k * (LANES), ty[k]);                                       \
+                    STOREU(oz + k * (LANES), tz[k]);                                       \
+                }                                                                          \
+                for (int l = 0; l < T; l++) {                                              \
+                    for (ptrdiff_t j = own0; j < own1; j++) {                              \
+                        if (j == i0 + l) continue;                                         \
+                        const double dx = x[j] - ox[l], dy = y[j] - oy[l];                 \
+                        const double dz = z[j] - oz[l];                                    \
+                        const double r2 = dx * dx + dy * dy + dz * dz + eps2;              \
+                        const double f = gm[j] / (r2 * sqrt(r2));                          \
+                        cx[l] += f * dx;                                                   \
+                        cy[l] += f * dy;                                                   \
+                        cz[l] += f * dz;                                                   \
+                    }                                                                      \
+                }                                                                          \
+                for (int k = 0; k < (K); k++) {                                            \
+                    ax[k] = LOADU(cx + k * (LANES));                                       \
+                    ay[k] = LOADU(cy + k * (LANES));                                       \
+                    az[k] = LOADU(cz + k * (LANES));                                       \
+                }                                                                          \
+            }                                                                              \
+        }                                                                                  \
+        for (int k = 0; k < (K); k++) {                                                    \
+            STOREU(bx + k * (LANES), ax[k]);                                               \
+            STOREU(by + k * (LANES), ay[k]);                                               \
+            STOREU(bz + k * (LANES), az[k]);                                               \
+        }                                                                                  \
+        if (width == T) {                                                                  \
+            for (int k = 0; k < (K); k++) /* x * 0 is nan exactly when x is inf or nan */  \
+                check = ADD(check, ADD(ADD(MUL(ax[k], zero), MUL(ay[k], zero)),            \
+                                       MUL(az[k], zero)));                                 \
+        } else {                                                                           \
+            for (int l = 0; l < width && first_bad < 0; l++)                               \
+                if (!(isfinite(bx[l]) && isfinite(by[l]) && isfinite(bz[l])))              \
+                    first_bad = i0 + l;                                                    \
+        }                                                                                  \
+        double *row = acc + 3 * i0;                                                        \
+        for (int l = 0; l < width; l++) {                                                  \
+            row[3 * l] = bx[l];                                                            \
+            row[3 * l + 1] = by[l];                                                        \
+            row[3 * l + 2] = bz[l];                                                        \
+        }                                                                                  \
+    }                                                                                      \
+    double c[LANES];                                                                       \
+    STOREU(c, check);                                                                      \
+    int all_finite = 1;                                                                    \
+    for (int l = 0; l < (LANES); l++) all_finite &= c[l] == c[l];                          \
+    if (!all_finite) /* rare: find the first culprit in what was written */                \
+        for (ptrdiff_t i = t0; i < t1; i++)                                                \
+            if (!(isfinite(acc[3 * i]) && isfinite(acc[3 * i + 1])                         \
+                  && isfinite(acc[3 * i + 2])))                                            \
+                return i;                                                                  \
+    return first_bad;                                                                      \
 }
 
-#undef LB_GRAVITY_SEGMENT
+typedef ptrdiff_t (*lb_gravity_tiles_fn)(const double *, const double *, const double *,
+                                         const double *, ptrdiff_t, ptrdiff_t, ptrdiff_t,
+                                         double, double *);
+
+#define LB_S_SET1(a) (a)
+#define LB_S_LOADU(p) (*(p))
+#define LB_S_STOREU(p, v) (*(p) = (v))
+#define LB_S_ADD(a, b) ((a) + (b))
+#define LB_S_SUB(a, b) ((a) - (b))
+#define LB_S_MUL(a, b) ((a) * (b))
+#define LB_S_DIV(a, b) ((a) / (b))
+#define LB_S_SQRT(a) sqrt(a)
+
+#if LB_DISPATCH
+#include <immintrin.h>
+/* Baseline x86-64: SSE2, two doubles per register. */
+LB_DEFINE_TILES(lb_gravity_tiles_baseline, , __m128d, 2, LB_K_SSE2, _mm_set1_pd, _mm_loadu_pd,
+                _mm_storeu_pd, _mm_add_pd, _mm_sub_pd, _mm_mul_pd, _mm_div_pd, _mm_sqrt_pd)
+LB_DEFINE_TILES(lb_gravity_tiles_avx2, __attribute__((target("avx2"))), __m256d, 4, LB_K_AVX2,
+                _mm256_set1_pd, _mm256_loadu_pd, _mm256_storeu_pd, _mm256_add_pd,
+                _mm256_sub_pd, _mm256_mul_pd, _mm256_div_pd, _mm256_sqrt_pd)
+LB_DEFINE_TILES(lb_gravity_tiles_avx512, __attribute__((target("avx512f"))), __m512d, 8,
+                LB_K_AVX512, _mm512_set1_pd, _mm512_loadu_pd, _mm512_storeu_pd, _mm512_add_pd,
+                _mm512_sub_pd, _mm512_mul_pd, _mm512_div_pd, _mm512_sqrt_pd)
+#  define LB_TILE_BASELINE (2 * LB_K_SSE2)
+#else
+/* Portable C (other CPUs, or -march=native where the compiler may vectorise it). */
+#  define LB_TILE_BASELINE 8
+LB_DEFINE_TILES(lb_gravity_tiles_baseline, , double, 1, 8, LB_S_SET1, LB_S_LOADU, LB_S_STOREU,
+                LB_S_ADD, LB_S_SUB, LB_S_MUL, LB_S_DIV, LB_S_SQRT)
+#endif
+
+/* A variant: its tile loop and tile width (targets per tile). */
+typedef struct {
+    lb_gravity_tiles_fn tiles;
+    ptrdiff_t tile;
+} lb_gravity_variant;
+
+/* The variant to use on this CPU.  AVX2 is preferred to AVX-512 even where both
+ * exist: the divider bounds the loop, and 512-bit sqrt/div cost more issue slots per
+ * double on the Intel cores measured (bench/gravity.py, `--isa` shows every variant). */
+static int lb_gravity_isa_best(void)
+{
+#if LB_DISPATCH
+    __builtin_cpu_init();
+    if (__builtin_cpu_supports("avx2")) return LB_ISA_AVX2;
+    if (__builtin_cpu_supports("avx512f")) return LB_ISA_AVX512;
+#endif
+    return LB_ISA_BASELINE;
+}
+
+/* 1 if the variant for this instruction set is compiled in and the CPU runs it. */
+static int lb_gravity_isa_available(int isa)
+{
+    if (isa == LB_ISA_BASELINE) return 1;
+#if LB_DISPATCH
+    __builtin_cpu_init();
+    if (isa == LB_ISA_AVX2) return __builtin_cpu_supports("avx2") ? 1 : 0;
+    if (isa == LB_ISA_AVX512) return __builtin_cpu_supports("avx512f") ? 1 : 0;
+#endif
+    return 0;
+}
+
+static lb_gravity_variant lb_gravity_variant_for(int isa)
+{
+    lb_gravity_variant v = {lb_gravity_tiles_baseline, LB_TILE_BASELINE};
+#if LB_DISPATCH
+    if (isa == LB_ISA_AVX2) {
+        v.tiles = lb_gravity_tiles_avx2;
+        v.tile = 4 * LB_K_AVX2;
+    } else if (isa == LB_ISA_AVX512) {
+        v.tiles = lb_gravity_tiles_avx512;
+        v.tile = 8 * LB_K_AVX512;
+    }
+#else
+    (void)isa;
+#endif
+    return v;
+}
 
 /* Fill acc (n x 3, row-major) with the accelerations of all n bodies from the
- * n_active massive ones.  soa is scratch of 7 * n doubles owned by the caller.
- * Returns 0, or 1 with *bad set to the first body whose acceleration is not finite
- * (it shares its position with a massive body). */
+ * n_active massive ones, using the tile variant for instruction set isa (which the
+ * caller has checked with lb_gravity_isa_available).  soa is scratch of 7 * n doubles
+ * owned by the caller (4 * n are used).  Returns 0, or 1 with *bad set to the first
+ * body whose acceleration is not finite (it shares its position with a massive body,
+ * or the input held a non-finite value). */
+static int lb_gravity_accelerations_isa(int isa, const double *position, const double *mass,
+                                        ptrdiff_t n, ptrdiff_t n_active, double G, double eps2,
+                                        double *acc, double *soa, int threads, ptrdiff_t *bad)
+{
+    const lb_gravity_variant v = lb_gravity_variant_for(isa);
+    double *x = soa, *y = soa + n, *z = soa + 2 * n, *gm = soa + 3 * n;
+    for (ptrdiff_t j = 0; j < n_active; j++) {
+        x[j] = position[3 * j];
+        y[j] = position[3 * j + 1];
+        z[j] = position[3 * j + 2];
+        gm[j] = G * mass[j];
+    }
+    const ptrdiff_t ntiles = (n + v.tile - 1) / v.tile;
+    ptrdiff_t first_bad = n;
+#ifdef _OPENMP
+    const int parallel = threads > 1 && ntiles > 1
+                         && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS;
+    if (parallel) {
+        /* Each thread takes one contiguous run of whole tiles: it copies its own test
+         * particles, then sums.  The split never changes a bit of the result. */
+#pragma omp parallel num_threads(threads) reduction(min : first_bad)
+        {
+            const ptrdiff_t nthreads = omp_get_num_threads(), me = omp_get_thread_num();
+            const ptrdiff_t lo = ntiles * me / nthreads * v.tile;
+            ptrdiff_t hi = ntiles * (me + 1) / nthreads * v.tile;
+            if (hi > n) hi = n;
+            for (ptrdiff_t i = lo > n_active ? lo : n_active; i < hi; i++) {
+                x[i] = position[3 * i];
+                y[i] = position[3 * i + 1];
+                z[i] = position[3 * i + 2];
+            }
+            if (lo < hi) {
+                ptrdiff_t b = v.tiles(x, y, z, gm, n_active, lo, hi, eps2, acc);
+                if (b >= 0) first_bad = b;
+            }
+        }
+    } else
+#else
+    (void)threads;
+    (void)ntiles;
+#endif
+    {
+        for (ptrdiff_t i = n_active; i < n; i++) {
+            x[i] = position[3 * i];
+            y[i] = position[3 * i + 1];
+            z[i] = position[3 * i + 2];
+        }
+        ptrdiff_t b = v.tiles(x, y, z, gm, n_active, 0, n, eps2, acc);
+        if (b >= 0) first_bad = b;
+    }
+    if (first_bad < n) {
+        *bad = first_bad;
+        return 1;
+    }
+    return 0;
+}
+
+/* The kernel the stepping loops call: lb_gravity_accelerations_isa with the best
+ * variant for this CPU. */
 static int lb_gravity_accelerations(const double *position, const double *mass, ptrdiff_t n,
                                     ptrdiff_t n_active, double G, double eps2, double *acc,
                                     double *soa, int threads, ptrdiff_t *bad)
 {
-    double *x = soa, *y = soa + n, *z = soa + 2 * n, *gm = soa + 3 * n;
-    double *ax = soa + 4 * n, *ay = soa + 5 * n, *az = soa + 6 * n;
-    for (ptrdiff_t i = 0; i < n; i++) {
-        x[i] = position[3 * i];
-        y[i] = position[3 * i + 1];
-        z[i] = position[3 * i + 2];
+    static int best = -1; /* benign race: every thread stores the same value */
+    int isa = best;
+    if (isa < 0) {
+        isa = lb_gravity_isa_best();
+        best = isa;
     }
-    for (ptrdiff_t i = 0; i < n_active; i++) gm[i] = G * mass[i];
-    const ptrdiff_t nblocks = (n + LB_GRAVITY_BLOCK - 1) / LB_GRAVITY_BLOCK;
-#ifdef _OPENMP
-    const int parallel = threads > 1 && nblocks > 1
-                         && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS;
-#pragma omp parallel for schedule(static) num_threads(threads) if (parallel)
-#else
-    (void)threads;
-#endif
-    for (ptrdiff_t b = 0; b < nblocks; b++) {
-        ptrdiff_t i1 = (b + 1) * LB_GRAVITY_BLOCK;
-        lb_gravity_block(x, y, z, gm, n_active, b * LB_GRAVITY_BLOCK, i1 < n ? i1 : n, eps2,
-                         ax, ay, az);
-    }
-    for (ptrdiff_t i = 0; i < n; i++) {
-        if (!(isfinite(ax[i]) && isfinite(ay[i]) && isfinite(az[i]))) {
-            *bad = i;
-            return 1;
-        }
-        acc[3 * i] = ax[i];
-        acc[3 * i + 1] = ay[i];
-        acc[3 * i + 2] = az[i];
-    }
-    return 0;
+    return lb_gravity_accelerations_isa(isa, position, mass, n, n_active, G, eps2, acc, soa,
+                                        threads, bad);
 }
 
 /* Potential energy of the massive bodies: compensated sums in a fixed order. */
