@@ -252,3 +252,84 @@ def test_ensemble_table_of_a_scenario():
         ensemble_options({"gird": {}})
     with pytest.raises(lb.ScenarioError, match="count"):
         ensemble_options({"grid": {"b.mass": {"start": 0, "stop": 1, "count": 0}}})
+
+
+SCENARIO = """
+[scenario]
+name = "two invented planets"
+units = "nbody"
+angle_unit = "degree"
+
+[[body]]
+name = "star"
+mass = 1.0
+position = [0.0, 0.0, 0.0]
+velocity = [0.0, 0.0, 0.0]
+
+[[body]]
+name = "inner"
+mass = 5e-5
+primary = "star"
+semi_major_axis = 1.0
+
+[ensemble]
+directory = "scan"
+sample_every = 0.5
+stop_on = ["encounter"]
+encounter_hill = 2.0
+
+[ensemble.grid]
+"outer.semi_major_axis" = { start = 1.1, stop = 1.3, count = 3 }
+"outer.mean_anomaly" = [0.0, 90.0]
+
+[[body]]
+name = "outer"
+mass = 3e-5
+primary = "star"
+semi_major_axis = 1.2
+mean_anomaly = 115.0
+
+[integrator]
+method = "leapfrog"
+step = 0.0628
+
+[run]
+until = 30.0
+"""
+
+
+def test_command_line_runs_a_scenario_ensemble_and_draws_its_map(tmp_path, capsys):
+    from libration.cli import main
+    from libration.ensemble import ensemble_from_scenario
+
+    path = tmp_path / "scan.toml"
+    path.write_text(SCENARIO)
+    ensemble, _ = ensemble_from_scenario(path)
+    assert ensemble.directory == str(tmp_path / "scan") and len(ensemble) == 6
+    # Angles in the scenario's unit (degrees), elements about each body's primary.
+    assert ensemble.parameter_sets[1] == {"outer.semi_major_axis": 1.1, "outer.mean_anomaly": math.pi / 2}
+    assert ensemble.settings["method"] == "leapfrog" and ensemble.settings["until"] == 30.0
+    assert main(["ensemble", str(path), "--sequential", "--no-progress", "--plot"]) == 0
+    out = capsys.readouterr().out
+    assert "finished" in out and "map:" in out
+    table = Ensemble.open(tmp_path / "scan").results()
+    assert set(table["status"]) <= {"finished", "stopped"} and len(table) == 6
+    assert (tmp_path / "scan" / "map_first_encounter_time.png").exists()
+    # Running again resumes nothing and succeeds; a missing [ensemble] table is a usage error.
+    assert main(["ensemble", str(tmp_path / "scan"), "--sequential", "--no-progress"]) == 0
+    plain = tmp_path / "plain.toml"
+    plain.write_text(SCENARIO.split("[ensemble]")[0] + SCENARIO.split('mean_anomaly" = [0.0, 90.0]')[1])
+    assert main(["ensemble", str(plain), "--sequential", "--no-progress"]) == 2
+    assert "no [ensemble] table" in capsys.readouterr().err
+
+
+def test_demo_ensemble_from_the_command_line(tmp_path, capsys):
+    from libration.cli import main
+
+    assert main(["ensemble", "--demo", "--directory", str(tmp_path / "demo"), "--sequential", "--no-progress"]) == 0
+    table = Ensemble.open(tmp_path / "demo").results()
+    assert len(table) == 8 and set(table["status"]) == {"finished"}
+    assert np.all(table["energy_error"] < 1e-6)
+    # Perturbed members really differ, and the planets stay bound and far apart.
+    assert np.unique(table["Calyra c.final_semi_major_axis"]).size == 8
+    assert np.all(table["min_separation_hill"] > 3.0)

@@ -34,6 +34,12 @@ def _cmd_bench(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _cmd_ensemble(args: argparse.Namespace) -> int:
+    from .ensemble import cli_command
+
+    return cli_command(args)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of the ``libration`` command (one sub-parser per command)."""
     parser = argparse.ArgumentParser(
@@ -51,6 +57,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     bench = commands.add_parser("bench", help="quick throughput benchmark of the gravity kernel")
     bench.set_defaults(func=_cmd_bench)
+
+    from .ensemble import add_cli_arguments
+
+    ensemble = commands.add_parser("ensemble", help="run or resume an ensemble (a scenario's [ensemble] table)")
+    add_cli_arguments(ensemble)
+    ensemble.set_defaults(func=_cmd_ensemble)
     return parser
 
 

@@ -37,6 +37,7 @@ import itertools
 import json
 import math
 import os
+import re
 import socket
 import time as _time
 import warnings
@@ -1125,14 +1126,22 @@ def plot_results(table: np.ndarray, x: str, y: str | None, value: str, path: str
         if survivors.any():
             ax.legend()
     else:
-        xs, xi = np.unique(table[x], return_inverse=True)
-        ys, yi = np.unique(table[y], return_inverse=True)
-        grid = np.full((ys.size, xs.size), np.nan)
-        grid[yi, xi] = data
         from matplotlib.colors import LogNorm
 
         norm = LogNorm() if log and finite.size else None
-        mesh = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid), norm=norm, shading="flat")
+        xs, xi = np.unique(table[x], return_inverse=True)
+        ys, yi = np.unique(table[y], return_inverse=True)
+        cells = set(zip(xi.tolist(), yi.tolist()))
+        if xs.size * ys.size == len(table) == len(cells):  # a full grid: a colour map
+            grid = np.full((ys.size, xs.size), np.nan)
+            grid[yi, xi] = data
+            mesh = ax.pcolormesh(_edges(xs), _edges(ys), np.ma.masked_invalid(grid), norm=norm, shading="flat")
+        else:  # scattered members (random perturbations, lists): coloured points
+            mesh = ax.scatter(table[x], table[y], c=data, norm=norm, s=30, edgecolors="none")
+            if survivors.any():
+                ax.scatter(table[x][survivors], table[y][survivors], s=60, facecolors="none",
+                           edgecolors="k", label="no event")
+                ax.legend()
         fig.colorbar(mesh, ax=ax, label=label)
         ax.set_ylabel(y)
     ax.set_xlabel(x)
@@ -1215,56 +1224,104 @@ def ensemble_options(table: Mapping[str, Any], where: str = "[ensemble]") -> dic
     return options
 
 
-def ensemble_from_scenario(path: str | os.PathLike, directory: str | os.PathLike | None = None) -> tuple[Ensemble, int | None]:
+_TABLE_HEADER = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
+
+
+def split_scenario_text(text: str) -> tuple[str, str]:
+    """Split scenario text into (the scenario without its ensemble tables, those tables).
+
+    Lines of ``[ensemble]`` and ``[ensemble.*]`` tables are blanked (not removed) in the
+    first part, so line numbers in the scenario reader's messages stay right.
+    """
+    kept, taken = [], []
+    inside = False
+    for line in text.splitlines():
+        header = _TABLE_HEADER.match(line)
+        if header:
+            name = header.group(1).strip().strip('"')
+            inside = name == "ensemble" or name.startswith("ensemble.")
+        (taken if inside else kept).append(line)
+        (kept if inside else taken).append("")
+    return "\n".join(kept) + "\n", "\n".join(taken) + "\n"
+
+
+def ensemble_from_scenario(path: str | os.PathLike, directory: str | os.PathLike | None = None
+                           ) -> tuple[Ensemble, int | None]:
     """Build the :class:`Ensemble` described by a scenario file with an ``[ensemble]`` table.
 
-    The scenario's system, method, step/tolerance, events and end time are the base of
-    every member (read by :mod:`libration.scenario`).  Returns ``(ensemble, workers)``.
+    The scenario (read by :mod:`libration.scenario`) gives the base system, method,
+    step/tolerance, softening, options, events, start and end time (``[run] until``, which
+    ``[ensemble] until`` overrides).  Element parameters are about each body's primary
+    (``frame = "heliocentric"`` unless the table says otherwise) and angles (parameter values
+    and perturbation widths alike) are in the scenario's ``angle_unit``.  ``directory``
+    overrides ``[ensemble] directory``.  Returns ``(ensemble, workers)``.
     """
     import tomllib
 
+    from . import scenario as scenario_module
+
     path = os.fspath(path)
     try:
-        with open(path, "rb") as fh:
-            document = tomllib.load(fh)
+        with open(path, encoding="utf-8") as fh:
+            text = fh.read()
+    except OSError as exc:
+        raise ScenarioError(f"cannot read scenario file {path}: {exc.strerror or exc}") from None
+    except UnicodeDecodeError:
+        raise ScenarioError(f"{path}: not UTF-8 text; a scenario is a TOML text file") from None
+    rest, ensemble_text = split_scenario_text(text)
+    try:
+        document = tomllib.loads(ensemble_text)
     except tomllib.TOMLDecodeError as exc:
-        raise ScenarioError(f"{path} is not valid TOML: {exc}") from None
+        raise ScenarioError(f"{path}: the [ensemble] table is not valid TOML: {exc}") from None
     if "ensemble" not in document:
-        raise ScenarioError(f"{path} has no [ensemble] table; add one to run it as an ensemble")
+        raise ScenarioError(f"{path} has no [ensemble] table; add one to run the scenario as an ensemble")
     table = document["ensemble"]
     options = ensemble_options(table)
-    base, run = _scenario_base(path)
-    options.setdefault("until", run.get("until"))
+    loaded = scenario_module.parse(rest, path, os.path.dirname(os.path.abspath(path)))
+    base = loaded.system()
+    options.setdefault("until", loaded.until)
     if options["until"] is None:
-        raise ScenarioError(f"{path}: [ensemble] needs until = <end time> (the scenario gives none)")
-    for key in ("method", "step", "tolerance", "softening", "events", "options"):
-        if run.get(key) is not None:
-            options.setdefault(key, run[key])
+        raise ScenarioError(f"{path}: give the end time as [run] until or [ensemble] until")
+    options.setdefault("start", loaded.start)
+    options.setdefault("frame", "heliocentric")
+    if loaded.checkpoint_interval is not None:
+        options.setdefault("checkpoint_interval", loaded.checkpoint_interval)
+    options.update(method=loaded.method, step=loaded.step, tolerance=loaded.tolerance,
+                   softening=loaded.softening, events=loaded.events, options=loaded.options or None)
+    if loaded.angle_unit == "degree":
+        _degrees_to_radians(options)
     where = directory if directory is not None else table.get("directory")
     if where is None:
         where = os.path.splitext(path)[0] + "_ensemble"
-    elif not os.path.isabs(os.fspath(where)) and directory is None:
+    elif directory is None and not os.path.isabs(os.fspath(where)):
         where = os.path.join(os.path.dirname(os.path.abspath(path)), os.fspath(where))
     workers = table.get("workers")
     if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int) or workers < 1):
-        raise ScenarioError(f"[ensemble].workers must be an integer >= 1, got {workers!r}")
-    return Ensemble(base, where, **options), workers
-
-
-def _scenario_base(path: str) -> tuple[System, dict[str, Any]]:
-    """The scenario's system and run settings, through libration.scenario."""
+        raise ScenarioError(f"{path}: [ensemble] key 'workers' must be an integer >= 1, got {workers!r}")
     try:
-        from . import scenario
-    except ImportError as exc:
-        raise ScenarioError("scenario files need libration.scenario, which this build lacks") from exc
-    loaded = scenario.load(path)
-    system = getattr(loaded, "system")
-    run: dict[str, Any] = {}
-    for key in ("method", "step", "tolerance", "softening", "events", "until"):
-        run[key] = getattr(loaded, key, None)
-    options = getattr(loaded, "options", None)
-    run["options"] = dict(options) if options else None
-    return system, run
+        return Ensemble(base, where, **options), workers
+    except ScenarioError:
+        raise
+    except ValidationError as exc:
+        raise ScenarioError(f"{path}: [ensemble]: {exc}") from None
+
+
+_ANGLE_FIELDS = ("inclination", "ascending_node", "argument_of_periapsis", "mean_anomaly")
+
+
+def _degrees_to_radians(options: dict[str, Any]) -> None:
+    def is_angle(name: str) -> bool:
+        return name.rpartition(".")[2] in _ANGLE_FIELDS
+
+    scale = math.pi / 180.0
+    if "grid" in options:
+        options["grid"] = {k: [float(x) * scale for x in v] if is_angle(k) else v
+                           for k, v in options["grid"].items()}
+    if "perturb" in options and isinstance(options["perturb"], Mapping):
+        options["perturb"] = {k: float(v) * scale if is_angle(k) else v for k, v in options["perturb"].items()}
+    if "members" in options and isinstance(options["members"], list):
+        options["members"] = [{k: float(v) * scale if is_angle(k) else v for k, v in dict(m).items()}
+                              for m in options["members"]]
 
 
 def demo_ensemble(directory: str | os.PathLike, count: int = 8, years: float = 20.0, seed: int = 1) -> Ensemble:
@@ -1277,3 +1334,90 @@ def demo_ensemble(directory: str | os.PathLike, count: int = 8, years: float = 2
     return Ensemble(system, directory, until=years * 365.25, method="yoshida4", step=4.0,
                     perturb={f"{planet}.mean_anomaly": 1e-3, f"{planet}.semi_major_axis": 1e-4},
                     count=count, seed=seed, sample_every=20.0, checkpoint_interval=10.0)
+
+
+# ================================================================================= command line
+def add_cli_arguments(parser) -> None:
+    """Arguments of ``libration ensemble`` (the command itself is :func:`cli_command`)."""
+    parser.add_argument("source", nargs="?", default=None,
+                        help="a scenario file with an [ensemble] table, or an ensemble directory to resume")
+    parser.add_argument("--demo", action="store_true",
+                        help="the demo system with perturbed initial conditions (8 members, 20 years)")
+    parser.add_argument("--directory", default=None, help="ensemble directory (overrides the scenario's)")
+    parser.add_argument("--workers", type=int, default=None, help="local worker processes (default: cores)")
+    parser.add_argument("--scheduler", default=None,
+                        help="address of a running Dask scheduler (tcp://host:port) to run the members on")
+    parser.add_argument("--sequential", action="store_true", help="run the members one by one in this process")
+    parser.add_argument("--retry-failed", action="store_true", help="run failed members again")
+    parser.add_argument("--plot", nargs="*", metavar="X [Y]", default=None,
+                        help="afterwards draw a stability map over parameters X (and Y); default the first two")
+    parser.add_argument("--value", default="first_encounter_time",
+                        help="result column drawn by --plot (default first_encounter_time)")
+    parser.add_argument("--no-progress", action="store_true", help="no progress bar on stderr")
+
+
+def _progress_bar(stream) -> Callable[[int, int], None]:
+    def show(done: int, total: int) -> None:
+        width = 30
+        filled = int(width * done / total) if total else width
+        stream.write(f"\rmembers {done}/{total} [{'#' * filled}{'.' * (width - filled)}]")
+        if done == total:
+            stream.write("\n")
+        stream.flush()
+    return show
+
+
+def cli_command(args) -> int:
+    """Run ``libration ensemble``; returns the exit code (0 all done, 1 some failed or lost)."""
+    import sys
+
+    workers = args.workers
+    if args.demo:
+        ensemble = demo_ensemble(args.directory or "demo_ensemble")
+    elif args.source is None:
+        raise ValidationError("give a scenario file with an [ensemble] table, an ensemble directory, or --demo")
+    elif os.path.isdir(args.source):
+        ensemble = Ensemble.open(args.source)
+    else:
+        ensemble, scenario_workers = ensemble_from_scenario(args.source, args.directory)
+        workers = workers if workers is not None else scenario_workers
+    executor: Any = "sequential" if args.sequential else None
+    client = None
+    if args.scheduler:
+        try:
+            from distributed import Client
+        except ImportError:
+            raise ValidationError("--scheduler needs dask.distributed (pip install 'dask[distributed]')") from None
+        client = executor = Client(args.scheduler)
+    print(f"ensemble: {len(ensemble)} members in {ensemble.directory}", file=sys.stderr)
+    try:
+        progress = None if args.no_progress else _progress_bar(sys.stderr)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            table = ensemble.run(executor, workers=workers, retry_failed=args.retry_failed, progress=progress)
+    finally:
+        if client is not None:
+            client.close()
+    counts = {status: int(np.count_nonzero(table["status"] == status)) for status in np.unique(table["status"])}
+    print("status: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
+    for row in table[table["status"] == "failed"][:5]:
+        print(f"member {row['index']} failed: {row['message']}")
+    print(f"summary: {os.path.join(ensemble.directory, 'summary.csv')}")
+    if args.plot is not None:
+        axes = list(args.plot) or ensemble.parameters[:2]
+        path = ensemble.plot_map(axes[0], axes[1] if len(axes) > 1 else None, args.value)
+        print(f"map: {path}")
+    unfinished = sum(v for k, v in counts.items() if k not in FINISHED)
+    return 1 if unfinished else 0
+
+
+def plot_cli(path: str | os.PathLike, output: str | os.PathLike | None = None, x: str | None = None,
+             y: str | None = None, value: str = "first_encounter_time") -> str | None:
+    """For ``libration plot``: draw the map of an ensemble directory, manifest or summary.csv;
+    None when ``path`` is not an ensemble (so the caller tries other file kinds)."""
+    path = os.fspath(path)
+    if os.path.basename(path) == "summary.csv":
+        path = os.path.dirname(os.path.abspath(path))
+    if os.path.isdir(path) and os.path.exists(os.path.join(path, MANIFEST)) or os.path.basename(path) == MANIFEST:
+        return plot_path(path, x, y, value, output)
+    return None
