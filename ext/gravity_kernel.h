@@ -290,23 +290,22 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
     const int parallel = threads > 1 && ntiles > 1
                          && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS;
     if (parallel) {
-        /* Each thread takes one contiguous run of whole tiles: it copies its own test
-         * particles, then sums.  The split never changes a bit of the result. */
-#pragma omp parallel num_threads(threads) reduction(min : first_bad)
-        {
-            const ptrdiff_t nthreads = omp_get_num_threads(), me = omp_get_thread_num();
-            const ptrdiff_t lo = ntiles * me / nthreads * v.tile;
-            ptrdiff_t hi = ntiles * (me + 1) / nthreads * v.tile;
-            if (hi > n) hi = n;
+        /* Chunks of whole tiles, handed out on demand (a thread that starts late, on a
+         * busy machine, just takes fewer); each chunk copies its own test particles,
+         * then sums.  How the chunks fall never changes a bit of the result. */
+        const ptrdiff_t per_chunk = (ntiles + 8 * (ptrdiff_t)threads - 1) / (8 * (ptrdiff_t)threads);
+        const ptrdiff_t nchunks = (ntiles + per_chunk - 1) / per_chunk;
+#pragma omp parallel for schedule(dynamic, 1) num_threads(threads) reduction(min : first_bad)
+        for (ptrdiff_t c = 0; c < nchunks; c++) {
+            const ptrdiff_t lo = c * per_chunk * v.tile;
+            const ptrdiff_t hi = lo + per_chunk * v.tile < n ? lo + per_chunk * v.tile : n;
             for (ptrdiff_t i = lo > n_active ? lo : n_active; i < hi; i++) {
                 x[i] = position[3 * i];
                 y[i] = position[3 * i + 1];
                 z[i] = position[3 * i + 2];
             }
-            if (lo < hi) {
-                ptrdiff_t b = v.tiles(x, y, z, gm, n_active, lo, hi, eps2, acc);
-                if (b >= 0) first_bad = b;
-            }
+            ptrdiff_t b = v.tiles(x, y, z, gm, n_active, lo, hi, eps2, acc);
+            if (b >= 0 && b < first_bad) first_bad = b;
         }
     } else
 #else
@@ -335,12 +334,20 @@ static int lb_gravity_accelerations(const double *position, const double *mass, 
                                     ptrdiff_t n_active, double G, double eps2, double *acc,
                                     double *soa, int threads, ptrdiff_t *bad)
 {
-    static int best = -1; /* benign race: every thread stores the same value */
+    static int best = -1; /* every thread that finds it unset stores the same value */
+#if defined(__GNUC__) || defined(__clang__)
+    int isa = __atomic_load_n(&best, __ATOMIC_RELAXED);
+    if (isa < 0) {
+        isa = lb_gravity_isa_best();
+        __atomic_store_n(&best, isa, __ATOMIC_RELAXED);
+    }
+#else
     int isa = best;
     if (isa < 0) {
         isa = lb_gravity_isa_best();
         best = isa;
     }
+#endif
     return lb_gravity_accelerations_isa(isa, position, mass, n, n_active, G, eps2, acc, soa,
                                         threads, bad);
 }

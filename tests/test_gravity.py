@@ -261,3 +261,23 @@ class TestValidation:
 
     def test_empty_system(self):
         assert _gravity.accelerations(np.zeros((0, 3)), np.zeros(0), 0, 1.0).shape == (0, 3)
+
+
+class TestBenchHelpers:
+    """libration.bench: the numpy baseline is a correct direct sum; rows have their fields."""
+
+    def test_numpy_baseline_matches_accurate_sum(self, rng):
+        from libration.bench import numpy_accelerations
+        position, mass, n_active = random_system(rng, 90, 40)
+        for chunk in (1, 64, 1 << 14):  # chunks of 1 target, of several, all at once
+            acc = numpy_accelerations(position, mass, n_active, 1.5, 0.01, chunk_elements=chunk)
+            assert relative_error(acc, fsum_accelerations(position, mass, n_active, 1.5, 0.01)) < 1e-13
+
+    def test_measure_row_and_table(self):
+        from libration.bench import format_table, measure
+        row = measure("full", 24, 24, threads=(1, 2), min_seconds=0.0, repeats=1)
+        assert row["interactions"] == 24 * 23
+        for key in ("kernel_1_rate", "kernel_2_rate", "numpy_rate", "vs_numpy", "speedup_2"):
+            assert row[key] > 0
+        table = format_table([row])
+        assert "kernel/numpy" in table and "full" in table and "2T/1T" in table
