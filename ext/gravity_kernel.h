@@ -58,6 +58,9 @@
  * 8e8 interactions per second per core (bench/gravity.py measures both). */
 #define LB_PARALLEL_MIN_INTERACTIONS 65536.0
 
+/* Most targets per chunk of work (x, y, z and the output stay in the L2 cache). */
+#define LB_CHUNK_TARGETS 4096
+
 /* Instruction-set variants of the tile loop (lb_gravity_isa_* return these). */
 #define LB_ISA_BASELINE 0
 #define LB_ISA_AVX2 1
@@ -285,41 +288,39 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
         gm[j] = G * mass[j];
     }
     const ptrdiff_t ntiles = (n + v.tile - 1) / v.tile;
-    ptrdiff_t first_bad = n;
+    /* Targets go in chunks of whole tiles: a chunk copies its own test particles into
+     * x, y, z and sums at once, while they are still in cache.  Chunks hold at most
+     * LB_CHUNK_TARGETS bodies, and with threads at least 8 chunks per thread, handed
+     * out on demand (a thread that starts late on a busy machine just takes fewer).
+     * How the chunks fall never changes a bit of the result. */
+    ptrdiff_t per_chunk = LB_CHUNK_TARGETS / v.tile;
+    int parallel = 0;
 #ifdef _OPENMP
-    const int parallel = threads > 1 && ntiles > 1
-                         && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS;
+    parallel = threads > 1 && ntiles > 1
+               && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS;
     if (parallel) {
-        /* Chunks of whole tiles, handed out on demand (a thread that starts late, on a
-         * busy machine, just takes fewer); each chunk copies its own test particles,
-         * then sums.  How the chunks fall never changes a bit of the result. */
-        const ptrdiff_t per_chunk = (ntiles + 8 * (ptrdiff_t)threads - 1) / (8 * (ptrdiff_t)threads);
-        const ptrdiff_t nchunks = (ntiles + per_chunk - 1) / per_chunk;
-#pragma omp parallel for schedule(dynamic, 1) num_threads(threads) reduction(min : first_bad)
-        for (ptrdiff_t c = 0; c < nchunks; c++) {
-            const ptrdiff_t lo = c * per_chunk * v.tile;
-            const ptrdiff_t hi = lo + per_chunk * v.tile < n ? lo + per_chunk * v.tile : n;
-            for (ptrdiff_t i = lo > n_active ? lo : n_active; i < hi; i++) {
-                x[i] = position[3 * i];
-                y[i] = position[3 * i + 1];
-                z[i] = position[3 * i + 2];
-            }
-            ptrdiff_t b = v.tiles(x, y, z, gm, n_active, lo, hi, eps2, acc);
-            if (b >= 0 && b < first_bad) first_bad = b;
-        }
-    } else
+        const ptrdiff_t share = (ntiles + 8 * (ptrdiff_t)threads - 1) / (8 * (ptrdiff_t)threads);
+        if (share < per_chunk) per_chunk = share;
+    }
 #else
     (void)threads;
-    (void)ntiles;
 #endif
-    {
-        for (ptrdiff_t i = n_active; i < n; i++) {
+    const ptrdiff_t nchunks = (ntiles + per_chunk - 1) / per_chunk;
+    ptrdiff_t first_bad = n;
+#ifdef _OPENMP
+#pragma omp parallel for schedule(dynamic, 1) num_threads(threads) if (parallel) \
+    reduction(min : first_bad)
+#endif
+    for (ptrdiff_t c = 0; c < nchunks; c++) {
+        const ptrdiff_t lo = c * per_chunk * v.tile;
+        const ptrdiff_t hi = lo + per_chunk * v.tile < n ? lo + per_chunk * v.tile : n;
+        for (ptrdiff_t i = lo > n_active ? lo : n_active; i < hi; i++) {
             x[i] = position[3 * i];
             y[i] = position[3 * i + 1];
             z[i] = position[3 * i + 2];
         }
-        ptrdiff_t b = v.tiles(x, y, z, gm, n_active, 0, n, eps2, acc);
-        if (b >= 0) first_bad = b;
+        ptrdiff_t b = v.tiles(x, y, z, gm, n_active, lo, hi, eps2, acc);
+        if (b >= 0 && b < first_bad) first_bad = b;
     }
     if (first_bad < n) {
         *bad = first_bad;

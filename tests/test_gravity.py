@@ -90,6 +90,14 @@ def test_large_system_equals_ordered_sum_bitwise(rng):
     np.testing.assert_array_equal(acc, ordered_accelerations(position, mass, n_active, 2.5))
 
 
+@pytest.mark.parametrize("threads", [1, 2])
+def test_many_particles_across_work_chunks_bitwise(rng, threads):
+    # 9001 targets span several of the kernel's work chunks (4096 targets at most each).
+    position, mass, n_active = random_system(rng, 9001, 5)
+    acc = _gravity.accelerations(position, mass, n_active, 1.0, threads=threads)
+    np.testing.assert_array_equal(acc, ordered_accelerations(position, mass, n_active, 1.0))
+
+
 def test_no_sources_gives_zero(rng):
     position, mass, _ = random_system(rng, 10, 0)
     assert np.all(_gravity.accelerations(position, mass, 0, 1.0) == 0.0)
