@@ -335,47 +335,62 @@ class _Tracker:
             a_row = np.full(len(self.names), np.nan)
             e_row = np.full(len(self.names), np.nan)
             i_row = np.full(len(self.names), np.nan)
-            for k, j in present:
-                a, e, inc = _two_body(mu[j], rel_r[j], rel_v[j])
-                a_row[k], e_row[k], i_row[k] = a, e, inc
-                if e > self.max_eccentricity[k]:
-                    self.max_eccentricity[k] = e
+            ks = np.array([k for k, _ in present], dtype=np.intp)
+            js = np.array([j for _, j in present], dtype=np.intp)
+            if present:
+                a_row[ks], e_row[ks], i_row[ks] = _two_body(mu[js], rel_r[js], rel_v[js])
+                self.max_eccentricity[ks] = np.fmax(self.max_eccentricity[ks], e_row[ks])
             if math.isnan(self.escape_distance):
-                self.escape_distance = 10.0 * float(max(distance[j] for _, j in present)) if present else math.inf
-            if math.isnan(self.first_escape_time):
-                for k, j in present:
-                    if distance[j] > self.escape_distance and not e_row[k] < 1.0:
-                        self.first_escape_time, self.first_escape_body = t, self.names[k]
-                        met = "escape"
-                        break
+                self.escape_distance = 10.0 * float(distance[js].max()) if present else math.inf
+            if math.isnan(self.first_escape_time) and present:
+                gone = np.flatnonzero((distance[js] > self.escape_distance) & ~(e_row[ks] < 1.0))
+                if gone.size:
+                    self.first_escape_time, self.first_escape_body = t, self.names[int(ks[gone[0]])]
+                    met = "escape"
             massive = [(k, j) for k, j in present if system.mass[j] > 0]
-            for (k1, j1), (k2, j2) in itertools.combinations(massive, 2):
-                separation = float(np.linalg.norm(system.position[j1] - system.position[j2]))
-                hill = ((system.mass[j1] + system.mass[j2]) / (3.0 * system.mass[p])) ** (1.0 / 3.0) \
+            if len(massive) >= 2:
+                pairs = np.array(list(itertools.combinations(range(len(massive)), 2)), dtype=np.intp)
+                mk = np.array([k for k, _ in massive], dtype=np.intp)
+                mj = np.array([j for _, j in massive], dtype=np.intp)
+                j1, j2 = mj[pairs[:, 0]], mj[pairs[:, 1]]
+                gap = system.position[j1] - system.position[j2]
+                separation = np.sqrt(np.einsum("ij,ij->i", gap, gap))
+                hill = np.cbrt((system.mass[j1] + system.mass[j2]) / (3.0 * system.mass[p])) \
                     * 0.5 * (distance[j1] + distance[j2])
                 ratio = separation / hill
-                self.min_hill = min(self.min_hill, ratio)
-                if ratio < self.encounter_hill and math.isnan(self.first_encounter_time):
+                self.min_hill = min(self.min_hill, float(ratio.min()))
+                close = np.flatnonzero(ratio < self.encounter_hill)
+                if close.size and math.isnan(self.first_encounter_time):
+                    first = pairs[close[0]]
                     self.first_encounter_time = t
-                    self.first_encounter_bodies = f"{self.names[k1]}+{self.names[k2]}"
+                    self.first_encounter_bodies = f"{self.names[mk[first[0]]]}+{self.names[mk[first[1]]]}"
                     met = met or "encounter"
             row.extend(a_row.tolist() + e_row.tolist() + i_row.tolist())
         self.series.append(row)
         return met
 
 
-def _two_body(mu: float, r: np.ndarray, v: np.ndarray) -> tuple[float, float, float]:
-    """Osculating semi-major axis, eccentricity and inclination (rad) about a primary."""
-    radius = math.sqrt(float(r @ r))
-    if radius == 0 or mu == 0:
-        return math.nan, math.nan, math.nan
-    h = np.cross(r, v)
-    e_vec = np.cross(v, h) / mu - r / radius
-    energy = 0.5 * float(v @ v) - mu / radius
-    a = -mu / (2.0 * energy) if energy != 0 else math.inf
-    h_norm = math.sqrt(float(h @ h))
-    inclination = math.acos(max(-1.0, min(1.0, h[2] / h_norm))) if h_norm > 0 else 0.0
-    return a, math.sqrt(float(e_vec @ e_vec)), inclination
+def _two_body(mu: np.ndarray, r: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Osculating semi-major axes, eccentricities and inclinations (rad) about a primary.
+
+    ``mu`` shape (k,), ``r`` and ``v`` shape (k, 3) relative to the primary; nan where the
+    distance or ``mu`` is zero.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        radius = np.sqrt(np.einsum("ij,ij->i", r, r))
+        h = np.stack([r[:, 1] * v[:, 2] - r[:, 2] * v[:, 1], r[:, 2] * v[:, 0] - r[:, 0] * v[:, 2],
+                      r[:, 0] * v[:, 1] - r[:, 1] * v[:, 0]], axis=1)
+        v2 = np.einsum("ij,ij->i", v, v)
+        rv = np.einsum("ij,ij->i", r, v)
+        # e = ((v^2 - mu/r) r - (r.v) v) / mu
+        e_vec = ((v2 - mu / radius)[:, None] * r - rv[:, None] * v) / mu[:, None]
+        energy = 0.5 * v2 - mu / radius
+        a = -mu / (2.0 * energy)
+        h_norm = np.sqrt(np.einsum("ij,ij->i", h, h))
+        inclination = np.where(h_norm > 0, np.arccos(np.clip(h[:, 2] / h_norm, -1.0, 1.0)), 0.0)
+        e = np.sqrt(np.einsum("ij,ij->i", e_vec, e_vec))
+    bad = (radius == 0) | (mu == 0)
+    return np.where(bad, np.nan, a), np.where(bad, np.nan, e), np.where(bad, np.nan, inclination)
 
 
 def _event_times(event_log: Sequence[Mapping[str, Any]]) -> dict[str, float]:
@@ -453,8 +468,15 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
         reason = tracker.stop_reason
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # a stopped integration is a result here
+            step = task["settings"]["step"]
+            # Fixed step: samples on the step grid (t0 + n * step, as the propagator counts),
+            # so no sample needs a partial step finished on a copy.
+            stride = max(1, round(every / step)) if step is not None else 0
             while propagator.time != until and not reason:
-                target = start + tracker.next_sample * every
+                if stride:
+                    target = propagator.t0 + (tracker.next_sample * stride) * step
+                else:
+                    target = start + tracker.next_sample * every
                 if (target - until) * (until - start) >= 0:
                     target = until
                 propagator.advance(target)
