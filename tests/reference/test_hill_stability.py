@@ -10,8 +10,9 @@ Inside the boundary the planets meet promptly, within tens of synodic periods, w
 the ensemble scan below looks for.
 
 The planets are invented (masses 5e-5 and 3e-5 of the star, "light planets").  A close
-encounter is a separation below 2 mutual Hill radii, sampled ten times per inner orbit
-(common practice: encounter checks at a few Hill radii).
+encounter is a separation below 2 mutual Hill radii (common practice: encounter checks at a
+few Hill radii), detected two ways: by the ensemble's own sampling (ten samples per inner
+orbit) and by the compiled per-step encounter events, located in time (libration.events).
 """
 from __future__ import annotations
 
@@ -33,19 +34,20 @@ def outer_semi_major_axis(delta: np.ndarray) -> np.ndarray:
     return (1.0 + k) / (1.0 - k)
 
 
-def test_scan_over_outer_semi_major_axis_finds_gladman_boundary(tmp_path):
+def scan(directory, **detection) -> tuple[np.ndarray, np.ndarray]:
     base = lb.System.from_elements(1.0, [M_INNER, M_OUTER], [1.0, 1.2], [0.0, 0.0], [0.0, 0.0], [0.0, 0.0],
                                    [0.0, 0.0], [0.0, 2.0], units="nbody", names=["star", "inner", "outer"])
     deltas = np.arange(2.5, 4.51, 0.25)  # grid resolution 0.25 mutual Hill radii
-    spacing = 0.25
-    ensemble = Ensemble(base, tmp_path / "scan", until=300 * TWO_PI, method="leapfrog", step=TWO_PI / 100,
-                        grid={"outer.semi_major_axis": outer_semi_major_axis(deltas)}, sample_every=TWO_PI / 10,
-                        encounter_hill=2.0, stop_on=["encounter"], track=["inner", "outer"])
-    table = ensemble.run("sequential")
+    ensemble = Ensemble(base, directory, until=300 * TWO_PI, method="leapfrog", step=TWO_PI / 100,
+                        grid={"outer.semi_major_axis": outer_semi_major_axis(deltas)}, track=["inner", "outer"],
+                        **detection)
+    return deltas, ensemble.run("sequential")
+
+
+def check_boundary(deltas: np.ndarray, table: np.ndarray, spacing: float = 0.25) -> None:
     assert set(table["status"]) <= {"finished", "stopped"}
     # The grid really spans the intended separations (elements rebuilt exactly enough).
-    a2 = table["outer.semi_major_axis"]
-    assert np.allclose(outer_semi_major_axis(deltas), a2, rtol=0, atol=1e-15)
+    assert np.allclose(outer_semi_major_axis(deltas), table["outer.semi_major_axis"], rtol=0, atol=1e-15)
     met = np.isfinite(table["first_encounter_time"])
     inside = deltas < GLADMAN_CRITICAL
     # Prompt close encounters inside the boundary, within 300 inner orbits ...
@@ -63,3 +65,17 @@ def test_scan_over_outer_semi_major_axis_finds_gladman_boundary(tmp_path):
     assert abs(0.5 * (widest_met + closest_quiet) - GLADMAN_CRITICAL) <= spacing
     # The energy stays conserved to the leapfrog's level up to the encounter or the end.
     assert np.all(table["energy_error"] < 1e-3)
+
+
+def test_scan_over_outer_semi_major_axis_finds_gladman_boundary(tmp_path):
+    sample = TWO_PI / 10
+    deltas, sampled = scan(tmp_path / "sampled", sample_every=sample, encounter_hill=2.0, stop_on=["encounter"])
+    check_boundary(deltas, sampled)
+    _, located = scan(tmp_path / "events", sample_every=TWO_PI / 2,
+                      events={"encounter": "stop", "encounter_hill": 2.0})
+    check_boundary(deltas, located)
+    # Both detections see the same encounters: the located time lies within the sampling
+    # interval before the first sample that saw the pair inside 2 Hill radii.
+    met = np.isfinite(sampled["first_encounter_time"])
+    t_sampled, t_located = sampled["first_encounter_time"][met], located["first_encounter_time"][met]
+    assert np.all(t_located <= t_sampled) and np.all(t_located > t_sampled - sample - 1e-9)
