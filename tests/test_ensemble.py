@@ -9,7 +9,6 @@ import os
 import signal
 import threading
 import time
-import warnings
 from concurrent.futures import ProcessPoolExecutor
 
 import numpy as np

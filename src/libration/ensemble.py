@@ -47,7 +47,7 @@ from typing import Any
 import numpy as np
 
 from ._version import __version__
-from .exceptions import FileFormatError, LibrationError, ScenarioError, ValidationError
+from .exceptions import FileFormatError, ScenarioError, ValidationError
 from .system import System
 from .units import get_units
 
@@ -783,7 +783,8 @@ class Ensemble:
                 raise FileFormatError(f"{self.manifest_path} is not a libration ensemble manifest")
             if existing.get("fingerprint") != self.fingerprint:
                 raise ValidationError(
-                    f"{self.directory} holds a different ensemble (fingerprint {existing.get('fingerprint')!r:.14}..., "
+                    f"{self.directory} holds a different ensemble (fingerprint "
+                    f"{str(existing.get('fingerprint'))[:12]!r}..., "
                     f"this one {self.fingerprint[:12]!r}...); use another directory or remove it")
         else:
             self._write_manifest()
@@ -1080,7 +1081,8 @@ def _parameter_sets(grid, members, perturb, count, seed, base, frame, primary) -
         for name, values in grid.items():
             array = np.asarray(values, dtype=np.float64).ravel()
             if array.size == 0 or not np.isfinite(array).all():
-                raise ValidationError(f"grid[{name!r}] must be a non-empty sequence of finite numbers, got {values!r}")
+                raise ValidationError(f"grid[{name!r}] must be a non-empty sequence of finite numbers, "
+                                      f"got {values!r}")
             axes.append(array.tolist())
         return [dict(zip(names, combo)) for combo in itertools.product(*axes)]
     if members is not None:
@@ -1223,7 +1225,8 @@ def ensemble_options(table: Mapping[str, Any], where: str = "[ensemble]") -> dic
         raise ScenarioError(f"{where} must be a table, got {type(table).__name__}")
     unknown = sorted(set(table) - _ENSEMBLE_KEYS)
     if unknown:
-        raise ScenarioError(f"{where}: unknown key(s) {', '.join(unknown)}; known: {', '.join(sorted(_ENSEMBLE_KEYS))}")
+        raise ScenarioError(f"{where}: unknown key(s) {', '.join(unknown)}; "
+                            f"known: {', '.join(sorted(_ENSEMBLE_KEYS))}")
     options = {k: v for k, v in table.items() if k not in ("grid", "workers", "directory")}
     if "grid" in table:
         grid = {}
@@ -1233,7 +1236,8 @@ def ensemble_options(table: Mapping[str, Any], where: str = "[ensemble]") -> dic
             if isinstance(axis, Mapping):
                 missing = {"start", "stop", "count"} - set(axis)
                 if missing or set(axis) - {"start", "stop", "count"}:
-                    raise ScenarioError(f"{where}.grid.{name!r} must be a list or {{start, stop, count}}, got {dict(axis)!r}")
+                    raise ScenarioError(f"{where}.grid.{name!r} must be a list or {{start, stop, count}}, "
+                                        f"got {dict(axis)!r}")
                 count = axis["count"]
                 if isinstance(count, bool) or not isinstance(count, int) or count < 1:
                     raise ScenarioError(f"{where}.grid.{name!r}.count must be an integer >= 1, got {count!r}")
@@ -1417,6 +1421,10 @@ def cli_command(args) -> int:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             table = ensemble.run(executor, workers=workers, retry_failed=args.retry_failed, progress=progress)
+    except KeyboardInterrupt:
+        ensemble._write_manifest()
+        print(f"\ninterrupted: run `libration ensemble {ensemble.directory}` to resume", file=sys.stderr)
+        return 130
     finally:
         if client is not None:
             client.close()
