@@ -332,3 +332,24 @@ def test_demo_ensemble_from_the_command_line(tmp_path, capsys):
     # Perturbed members really differ, and the planets stay bound and far apart.
     assert np.unique(table["Calyra c.final_semi_major_axis"]).size == 8
     assert np.all(table["min_separation_hill"] > 3.0)
+
+
+def build_from_parameters(parameters: dict) -> lb.System:
+    """A base function: the outer planet's mass and distance from the member's parameters."""
+    return lb.System.from_elements(1.0, [4e-5, parameters["outer_mass"]], [1.0, parameters["outer_distance"]],
+                                   [0.0, 0.0], [0.0, 0.0], [0.0, 0.0], [0.0, 0.0], [0.0, 2.0], units="nbody",
+                                   names=["star", "inner", "outer"])
+
+
+def test_a_base_function_builds_each_member(tmp_path):
+    members = [{"outer_mass": 1e-5, "outer_distance": 1.4}, {"outer_mass": 3e-5, "outer_distance": 1.6}]
+    ensemble = Ensemble(build_from_parameters, tmp_path / "f", until=2 * TWO_PI, step=TWO_PI / 50,
+                        members=members)
+    table = ensemble.run("sequential")
+    assert list(table["outer_mass"]) == [1e-5, 3e-5] and set(table["status"]) == {"finished"}
+    assert ensemble.final_system(1).mass[2] == 3e-5
+    assert abs(table["outer.final_semi_major_axis"][1] - 1.6) < 1e-2
+    reopened = Ensemble.open(tmp_path / "f")  # the function is found again by its import path
+    assert reopened.fingerprint == ensemble.fingerprint
+    with pytest.raises(lb.ValidationError, match="module-level function"):
+        Ensemble(lambda p: three_body(), tmp_path / "g", until=1.0, step=0.1, members=[{"x": 1.0}])

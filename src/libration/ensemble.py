@@ -791,25 +791,26 @@ class Ensemble:
 
     def member_records(self) -> list[dict[str, Any]]:
         """Status and summary of every member, read from the member directories."""
-        records = []
-        for i, parameters in enumerate(self.parameter_sets):
-            directory = self.member_directory(i)
-            record: dict[str, Any] = {"index": i, "parameters": parameters, "status": "pending", "message": ""}
-            summary_path = os.path.join(directory, "summary.json")
-            failure_path = os.path.join(directory, "failure.json")
-            if os.path.exists(summary_path):
-                summary = _read_json(summary_path)
-                if summary.get("fingerprint") == self.fingerprint:
-                    record.update(status=summary["status"], message=summary.get("message", ""), summary=summary)
-            elif os.path.exists(failure_path):
-                failure = _read_json(failure_path)
-                if failure.get("fingerprint") == self.fingerprint:
-                    record.update(status="failed", message=failure.get("message", ""))
-            if record["status"] == "pending" and os.path.exists(os.path.join(directory, "state.ckpt")):
-                record["status"] = "interrupted"
-                record["message"] = "has a checkpoint; resumes on the next run"
-            records.append(record)
-        return records
+        return [self._member_record(i) for i in range(len(self.parameter_sets))]
+
+    def _member_record(self, index: int) -> dict[str, Any]:
+        directory = self.member_directory(index)
+        record: dict[str, Any] = {"index": index, "parameters": self.parameter_sets[index], "status": "pending",
+                                  "message": ""}
+        summary_path = os.path.join(directory, "summary.json")
+        failure_path = os.path.join(directory, "failure.json")
+        if os.path.exists(summary_path):
+            summary = _read_json(summary_path)
+            if summary.get("fingerprint") == self.fingerprint:
+                record.update(status=summary["status"], message=summary.get("message", ""), summary=summary)
+        elif os.path.exists(failure_path):
+            failure = _read_json(failure_path)
+            if failure.get("fingerprint") == self.fingerprint:
+                record.update(status="failed", message=failure.get("message", ""))
+        if record["status"] == "pending" and os.path.exists(os.path.join(directory, "state.ckpt")):
+            record["status"] = "interrupted"
+            record["message"] = "has a checkpoint; resumes on the next run"
+        return record
 
     def _write_manifest(self, records: list[dict[str, Any]] | None = None) -> None:
         os.makedirs(self.directory, exist_ok=True)
@@ -874,19 +875,23 @@ class Ensemble:
             pool, owned = _resolve_executor(executor, workers)
             try:
                 futures = {pool.submit(run_member, task): task["index"] for task in tasks}
-                last_manifest = _time.monotonic()
+                last_manifest, manifest_cost = _time.monotonic(), 0.0
                 for future in cf.as_completed(futures):
                     index = futures[future]
                     try:
                         future.result()
                     except Exception as exc:  # noqa: BLE001 - the worker, not the member, failed
                         lost.append((index, f"{type(exc).__name__}: {exc}"))
+                    records[index] = self._member_record(index)
                     done += 1
                     if progress is not None:
                         progress(done, total)
-                    if _time.monotonic() - last_manifest > 2.0:
-                        self._write_manifest()
+                    # Keep the manifest current without letting its rewrites dominate.
+                    if _time.monotonic() - last_manifest > max(2.0, 20.0 * manifest_cost):
+                        began = _time.monotonic()
+                        self._write_manifest(records)
                         last_manifest = _time.monotonic()
+                        manifest_cost = last_manifest - began
             finally:
                 if owned:
                     pool.shutdown(wait=True, cancel_futures=True)
