@@ -15,7 +15,7 @@ from Cython.Build import cythonize
 from setuptools import Extension, setup
 
 # One row per compiled module: libration._<name> built from ext/<name>.pyx.
-EXTENSIONS = ["gravity", "symplectic", "kepler", "extrapolation"]
+EXTENSIONS = ["gravity", "symplectic", "kepler", "extrapolation", "wisdom_holman"]
 
 DEBUG = os.environ.get("LIBRATION_DEBUG", "0") == "1"
 NATIVE = os.environ.get("LIBRATION_NATIVE", "0") == "1"

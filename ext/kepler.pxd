@@ -11,18 +11,16 @@
 #
 # Speed: the bodies of a block are solved in lockstep (one Halley iteration for every unconverged
 # body, then the next iteration), so the long dependency chains of different bodies overlap in the
-# CPU.  Robustness: every Halley step is kept inside a bracket of the root (bisection otherwise);
+# CPU.  Robustness: every step is kept inside a bracket of the root (bisection otherwise);
 # if a body still fails, its index is reported and its state is left untouched -- never a silent
 # NaN.
 
-from libc.math cimport fabs, sqrt, rint, isfinite, sin, cos, sinh, cosh, atan2, asinh, log, M_PI
+from libc.math cimport fabs, sqrt, rint, isfinite, sin, cos, sinh, cosh, atan2, asinh, log, M_PI, INFINITY
 
 cdef enum:
     KEPLER_BLOCK = 8                 # bodies solved together in lockstep
     KEPLER_MAX_ITERATIONS = 200      # bracketed Halley/bisection iterations before giving up
 
-# Halley stops when the correction is below 2e-7 of s; the correction is then still applied,
-# and Halley's cubic convergence leaves an error far below one ulp.
 
 
 cdef inline void lb_stumpff(double x, double* c0, double* c1, double* c2, double* c3) noexcept nogil:
@@ -86,28 +84,32 @@ cdef inline void lb_kepler_g(double beta, double s, double* g1, double* g2, doub
 
 
 cdef inline double lb_kepler_reduce(double gm, double beta, double dt) noexcept nogil:
-    """Remove whole periods from dt on an elliptic orbit when |dt| > P (then |dt| <= P / 2)."""
-    cdef double period
+    """Remove whole periods from dt on an elliptic orbit when |dt| > P (then |dt| <= P / 2).
+    The test |dt| <= P, i.e. dt^2 beta^3 <= (2 pi gm)^2, needs no root or division."""
+    cdef double period, w
     if beta <= 0.0:
         return dt
-    period = 2.0 * M_PI * gm / (beta * sqrt(beta))
-    if fabs(dt) <= period:
+    w = 2.0 * M_PI * gm
+    if dt * dt * (beta * beta * beta) <= w * w:
         return dt
+    period = w / (beta * sqrt(beta))
     return dt - period * rint(dt / period)
 
 
-cdef inline double lb_kepler_guess(double gm, double r0, double eta, double beta,
-                                   double dt) noexcept nogil:
-    """Initial universal anomaly.  Short steps (|dt| / r0 * sqrt(|beta|) < 0.3, every planetary
-    step): the series s = dt / r0 - eta dt^2 / (2 r0^3).  Longer ones: the anomaly difference of
-    Danby's starter E = M + 0.85 e sign(sin M) (Danby 1988, eq. 6.6.5), or, on hyperbolic orbits,
-    H = sign(M) ln(2 |M| / e + 1.8) (Danby 1988, sec. 6.9), divided by sqrt(|beta|)."""
-    cdef double first = dt / r0
-    cdef double s, root, ecos, esin, ecc, e0, m1, e1, h0
-    if beta == 0.0 or fabs(first) * sqrt(fabs(beta)) < 0.3:
-        s = first * (1.0 - 0.5 * eta * first / r0)
-        if s * dt <= 0.0 or fabs(s) > 2.0 * fabs(first):
-            s = first
+cdef inline double lb_kepler_guess(double gm, double r0, double inv_r0, double eta, double zeta,
+                                   double beta, double dt) noexcept nogil:
+    """Initial universal anomaly.  Short steps (dt^2 |beta| / r0^2 < 0.09, every planetary step):
+    the inverted series s = u - eta u^2 / (2 r0) + (eta^2 / (2 r0^2) - zeta / (6 r0)) u^3 with
+    u = dt / r0, from t(s) = r0 s + eta s^2 / 2 + zeta s^3 / 6 + O(s^4).  Longer ones: the anomaly
+    difference of Danby's starter E = M + 0.85 e sign(sin M) (Danby 1988, eq. 6.6.5), or, on
+    hyperbolic orbits, H = sign(M) ln(2 |M| / e + 1.8) (Danby 1988, sec. 6.9), over sqrt(|beta|)."""
+    cdef double u = dt * inv_r0
+    cdef double s, root, ecos, esin, ecc, e0, m1, e1, h0, a
+    if u * u * fabs(beta) < 0.09:
+        a = eta * inv_r0
+        s = u * (1.0 + u * (-0.5 * a + u * (0.5 * a * a - zeta * inv_r0 / 6.0)))
+        if s * dt <= 0.0 or fabs(s) > 2.0 * fabs(u):
+            s = u
         return s
     root = sqrt(fabs(beta))
     if beta > 0.0:
@@ -133,8 +135,8 @@ cdef inline int lb_kepler_bracket(double r0, double eta, double zeta, double bet
                                   double* lo, double* hi) noexcept nogil:
     """A bracket [lo, hi] holding the root of t(s) = dt (t is increasing, t(0) = 0).
     Elliptic (|dt| <= P after reduction): s lies between 0 and +-2 pi / sqrt(beta), where
-    t = +-P (a full turn of the eccentric anomaly, E = sqrt(beta) s).  Otherwise the
-    bracket doubles until it holds the root.  Returns 1 if no bracket was found."""
+    t = +-P (a full turn of the eccentric anomaly, E = sqrt(beta) s).  Otherwise the bracket
+    doubles until it holds the root.  Returns 1 if no bracket was found."""
     cdef double width, f, g1, g2, g3, side
     cdef int it
     side = 1.0 if dt > 0.0 else -1.0
@@ -169,10 +171,16 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
     equation did not converge (that body's position and velocity are left unchanged, and so are
     the bodies after it).
 
-    Each body's iteration is Halley's method kept inside a bracket of the root (bisection when a
-    step would leave it), so it converges from any start; the bodies of a block iterate in
-    lockstep."""
+    Iteration: Danby's quartic step (Danby 1988, eq. 6.6.7) from the series guess; a body is done
+    when the residual |t(s) - dt| is below 1e-15 of the size of the terms of t(s) (about four
+    rounding units) and the Newton correction |t(s) - dt| / r is below 1e-15 |s| (near pericentre
+    r is small and the first test alone would be loose), or when a step no longer changes s; the
+    G functions of that last evaluation give f and g.  A planetary step needs two evaluations.  Every step is kept inside
+    a bracket of the root (t is increasing, so the sign of the residual moves one end); a step
+    that would leave it is replaced by bisection, so the iteration converges from any start.
+    The bodies of a block iterate in lockstep."""
     cdef double r0[KEPLER_BLOCK]
+    cdef double inv_r0[KEPLER_BLOCK]
     cdef double eta[KEPLER_BLOCK]
     cdef double zeta[KEPLER_BLOCK]
     cdef double beta[KEPLER_BLOCK]
@@ -180,11 +188,16 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
     cdef double s[KEPLER_BLOCK]
     cdef double lo[KEPLER_BLOCK]
     cdef double hi[KEPLER_BLOCK]
+    cdef double G1[KEPLER_BLOCK]
+    cdef double G2[KEPLER_BLOCK]
+    cdef double G3[KEPLER_BLOCK]
+    cdef double rr[KEPLER_BLOCK]
     cdef int active[KEPLER_BLOCK]
+    cdef int hard[KEPLER_BLOCK]
     cdef Py_ssize_t start, k, nb, i
     cdef int it, remaining
-    cdef double x, y, z, vx, vy, vz, v2, mu, g1, g2, g3, f, fp, fpp, step, r, cand
-    cdef double fm1, gg, fdot, gdotm1
+    cdef double x, y, z, vx, vy, vz, v2, mu, g1, g2, g3, f, f1, f2, f3, d1, d2, step, cand
+    cdef double scale, inv_r, fm1, gg, fdot, gdotm1, blo, bhi
     start = 0
     while start < n:
         nb = n - start
@@ -202,51 +215,79 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
             r0[k] = sqrt(x * x + y * y + z * z)
             if not (r0[k] > 0.0 and isfinite(r0[k]) and isfinite(vx + vy + vz) and isfinite(mu)):
                 return i
+            inv_r0[k] = 1.0 / r0[k]
             v2 = vx * vx + vy * vy + vz * vz
             eta[k] = x * vx + y * vy + z * vz
-            beta[k] = 2.0 * mu / r0[k] - v2
+            beta[k] = 2.0 * mu * inv_r0[k] - v2
             zeta[k] = mu - beta[k] * r0[k]
             tau[k] = lb_kepler_reduce(mu, beta[k], dt)
+            hard[k] = 0
+            if tau[k] > 0.0:
+                lo[k] = 0.0
+                hi[k] = INFINITY
+            else:
+                lo[k] = -INFINITY
+                hi[k] = 0.0
+            s[k] = lb_kepler_guess(mu, r0[k], inv_r0[k], eta[k], zeta[k], beta[k], tau[k])
             active[k] = 1
-            s[k] = 0.0
             if tau[k] == 0.0:
+                s[k] = 0.0
+                G1[k] = 0.0
+                G2[k] = 0.0
+                G3[k] = 0.0
+                rr[k] = r0[k]
                 active[k] = 0
-                continue
-            if lb_kepler_bracket(r0[k], eta[k], zeta[k], beta[k], tau[k], &lo[k], &hi[k]) != 0:
-                return i
-            s[k] = lb_kepler_guess(mu, r0[k], eta[k], beta[k], tau[k])
-            if not (lo[k] < s[k] < hi[k]):
-                s[k] = 0.5 * (lo[k] + hi[k])
         # Lockstep iterations: independent dependency chains that the CPU overlaps.
         for it in range(KEPLER_MAX_ITERATIONS):
             remaining = 0
             for k in range(nb):
-                if active[k]:
-                    lb_kepler_g(beta[k], s[k], &g1, &g2, &g3)
-                    f = r0[k] * s[k] + eta[k] * g2 + zeta[k] * g3 - tau[k]
-                    fp = r0[k] + eta[k] * g1 + zeta[k] * g2
-                    fpp = eta[k] * (1.0 - beta[k] * g2) + zeta[k] * g1
-                    if f < 0.0:
-                        lo[k] = s[k]
-                    elif f > 0.0:
-                        hi[k] = s[k]
-                    else:
-                        active[k] = 0
-                        continue
-                    step = -2.0 * f * fp / (2.0 * fp * fp - f * fpp)
-                    cand = s[k] + step
-                    if lo[k] < cand < hi[k]:
-                        s[k] = cand
-                        if fabs(step) <= 2e-7 * fabs(cand):
-                            active[k] = 0
-                            continue
-                    else:
+                if not active[k]:
+                    continue
+                lb_kepler_g(beta[k], s[k], &g1, &g2, &g3)
+                f = r0[k] * s[k] + eta[k] * g2 + zeta[k] * g3 - tau[k]
+                f1 = r0[k] + eta[k] * g1 + zeta[k] * g2
+                scale = fabs(r0[k] * s[k]) + fabs(eta[k] * g2) + fabs(zeta[k] * g3) + fabs(tau[k])
+                if fabs(f) <= 1e-15 * scale and fabs(f) <= 1e-15 * fabs(f1 * s[k]):
+                    G1[k] = g1
+                    G2[k] = g2
+                    G3[k] = g3
+                    rr[k] = f1
+                    active[k] = 0
+                    continue
+                if f < 0.0:
+                    lo[k] = s[k]
+                else:
+                    hi[k] = s[k]
+                f2 = eta[k] * (1.0 - beta[k] * g2) + zeta[k] * g1
+                f3 = zeta[k] * (1.0 - beta[k] * g2) - beta[k] * eta[k] * g1
+                d1 = -f / f1
+                d2 = -f / (f1 + 0.5 * d1 * f2)
+                step = -f / (f1 + 0.5 * d2 * f2 + d2 * d2 * f3 / 6.0)
+                cand = s[k] + step
+                if not (lo[k] < cand < hi[k]):
+                    if not hard[k]:
+                        # first escape: add the proven bracket of the root
+                        hard[k] = 1
+                        if lb_kepler_bracket(r0[k], eta[k], zeta[k], beta[k], tau[k], &blo,
+                                             &bhi) != 0:
+                            return start + k
+                        if blo > lo[k]:
+                            lo[k] = blo
+                        if bhi < hi[k]:
+                            hi[k] = bhi
+                    if not (lo[k] < cand < hi[k]):
                         cand = 0.5 * (lo[k] + hi[k])
-                        if cand == lo[k] or cand == hi[k]:
-                            active[k] = 0
-                            continue
-                        s[k] = cand
-                    remaining += 1
+                if cand == s[k]:
+                    # the residual cannot be reduced further in floating point: take the last
+                    # evaluation (it is within rounding of the root)
+                    G1[k] = g1
+                    G2[k] = g2
+                    G3[k] = g3
+                    rr[k] = f1
+                    active[k] = 0
+                    continue
+                s[k] = cand
+                remaining += 1
             if remaining == 0:
                 break
         for k in range(nb):
@@ -254,13 +295,12 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
             if active[k]:
                 return i
             mu = gm[i * gm_stride]
-            lb_kepler_g(beta[k], s[k], &g1, &g2, &g3)
-            r = r0[k] + eta[k] * g1 + zeta[k] * g2
-            fm1 = -mu * g2 / r0[k]
-            gg = tau[k] - mu * g3
-            fdot = -mu * g1 / (r0[k] * r)
-            gdotm1 = -mu * g2 / r
-            if not (isfinite(r) and isfinite(gg) and isfinite(fdot) and r > 0.0):
+            inv_r = 1.0 / rr[k]
+            fm1 = -mu * G2[k] * inv_r0[k]
+            gg = tau[k] - mu * G3[k]
+            fdot = -mu * G1[k] * inv_r0[k] * inv_r
+            gdotm1 = -mu * G2[k] * inv_r
+            if not (isfinite(inv_r) and isfinite(gg) and isfinite(fdot) and rr[k] > 0.0):
                 return i
             x = position[3 * i]
             y = position[3 * i + 1]

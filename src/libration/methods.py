@@ -250,3 +250,4 @@ class Yoshida8(Composition):
 
 
 # Other method families register themselves on import (kept at the bottom: they subclass Integrator).
+from . import wisdom_holman  # noqa: E402,F401  (registers wisdom-holman)
