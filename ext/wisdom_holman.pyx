@@ -80,9 +80,14 @@ cdef int pair_accelerations(const double* pos, const double* mass, Py_ssize_t n,
 cdef inline int accelerations(const double* pos, const double* mass, Py_ssize_t n,
                               Py_ssize_t n_active, double G, double eps2, double* acc, double* soa,
                               int threads, Py_ssize_t* bad) noexcept nogil:
-    """Small all-massive systems: the pair loop; otherwise the gravity kernel."""
-    if n == n_active and n <= PAIR_LOOP_MAX:
-        return pair_accelerations(pos, mass, n, G, eps2, acc, bad)
+    """Small systems: the massive bodies by the pair loop (test particles, if any, by the gravity
+    kernel, whose massive rows are then overwritten), so the massive bodies' motion is bitwise
+    the same with or without test particles.  Larger systems: the gravity kernel."""
+    if n_active <= PAIR_LOOP_MAX:
+        if n > n_active:
+            if lb_gravity_accelerations(pos, mass, n, n_active, G, eps2, acc, soa, threads, bad) != 0:
+                return 1
+        return pair_accelerations(pos, mass, n_active, G, eps2, acc, bad)
     return lb_gravity_accelerations(pos, mass, n, n_active, G, eps2, acc, soa, threads, bad)
 
 
