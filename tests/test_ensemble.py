@@ -85,9 +85,48 @@ def test_sequential_pool_and_dask_give_identical_members(tmp_path):
             processes = {json.load(open(os.path.join(on_dask.member_directory(i), "summary.json")))["process"]
                          for i in range(16)}
             assert len(processes) == 2 and os.getpid() not in {int(p.rsplit(":", 1)[1]) for p in processes}
+            assert_bitwise_equal(sequential, on_dask)
+
+            # A lost Dask worker: both worker processes are killed while member 0 runs; the
+            # nannies restart them, Dask reschedules the members and they resume from their
+            # checkpoints within the same run, ending with the bits of an uninterrupted run.
+            reference = small_grid(tmp_path / "reference", **LONG_MEMBERS)
+            reference.run("sequential")
+            victim = small_grid(tmp_path / "dask-killed", **LONG_MEMBERS)
+            pids = list(client.run(os.getpid).values())
+            killed = kill_when_checkpointed(victim.member_directory(0), lambda: pids)
+            victim.run(client)
+            killed.join()
+            assert killed.pids, "the member finished before its worker could be killed"
+            assert set(victim.results()["status"]) == {"finished"}
+            summary = json.load(open(os.path.join(victim.member_directory(0), "summary.json")))
+            assert summary["resumed_at"] is not None
+            assert_bitwise_equal(reference, victim)
     finally:
         cluster.close()
-    assert_bitwise_equal(sequential, on_dask)
+
+
+LONG_MEMBERS = dict(grid={"outer.semi_major_axis": [1.4, 1.5]}, until=300 * TWO_PI, step=TWO_PI / 100,
+                    sample_every=TWO_PI / 10, checkpoint_interval=0.02)
+
+
+def kill_when_checkpointed(member: str, pids) -> threading.Thread:
+    """Start a thread that SIGKILLs the processes ``pids()`` once ``member`` has a checkpoint
+    but no summary; the thread's ``pids`` attribute lists what it killed."""
+    def watch():
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and not thread.pids:
+            if (os.path.exists(os.path.join(member, "state.ckpt"))
+                    and not os.path.exists(os.path.join(member, "summary.json"))):
+                for pid in list(pids()):
+                    os.kill(pid, signal.SIGKILL)
+                    thread.pids.append(pid)
+            time.sleep(0.002)
+
+    thread = threading.Thread(target=watch)
+    thread.pids = []
+    thread.start()
+    return thread
 
 
 def test_member_order_does_not_matter(tmp_path):
@@ -112,40 +151,25 @@ def test_perturbations_depend_on_seed_and_index_only(tmp_path):
 
 # ------------------------------------------------------------------------------- durability
 def test_killed_worker_leaves_member_resumable(tmp_path):
-    settings = dict(grid={"outer.semi_major_axis": [1.4, 1.5]}, until=300 * TWO_PI, step=TWO_PI / 100,
-                    sample_every=TWO_PI / 10, checkpoint_interval=0.02)
-    reference = small_grid(tmp_path / "reference", **settings)
+    reference = small_grid(tmp_path / "reference", **LONG_MEMBERS)
     reference.run("sequential")
 
-    victim = small_grid(tmp_path / "killed", **settings)
+    victim = small_grid(tmp_path / "killed", **LONG_MEMBERS)
     member = victim.member_directory(0)
     pool = forkserver_pool(1)
-    killed = []
-
-    def kill_when_checkpointed():
-        deadline = time.monotonic() + 60
-        while time.monotonic() < deadline and not killed:
-            if (os.path.exists(os.path.join(member, "state.ckpt"))
-                    and not os.path.exists(os.path.join(member, "summary.json"))):
-                for pid in list(pool._processes):  # the pool's worker processes
-                    os.kill(pid, signal.SIGKILL)
-                    killed.append(pid)
-            time.sleep(0.002)
-
-    killer = threading.Thread(target=kill_when_checkpointed)
-    killer.start()
+    killer = kill_when_checkpointed(member, lambda: pool._processes)  # the pool's worker processes
     try:
         with pytest.warns(RuntimeWarning, match="interrupted"):
             victim.run(pool)
     finally:
         killer.join()
         pool.shutdown(wait=True)
-    assert killed, "the worker finished before it could be killed"
+    assert killer.pids, "the worker finished before it could be killed"
     assert victim.status().get("interrupted", 0) >= 1
     manifest = json.load(open(victim.manifest_path))
     assert manifest["members"][0]["status"] == "interrupted"
 
-    resumed = small_grid(tmp_path / "killed", **settings)  # the same script run again
+    resumed = small_grid(tmp_path / "killed", **LONG_MEMBERS)  # the same script run again
     table = resumed.run(workers=1)
     assert set(table["status"]) == {"finished"}
     summary = json.load(open(os.path.join(member, "summary.json")))
