@@ -68,20 +68,22 @@
 
 /* One tile variant.  VT is a vector of LANES doubles and a tile holds K vectors of
  * targets; the operation macros map to intrinsics, or to plain C for VT = double.
+ * LOAD3(p, &x, &y, &z) reads LANES rows of an (n, 3) array at p into three vectors
+ * and STORE3(p, x, y, z) writes them back (transposing in registers).
  * Every variant performs, lane by lane, exactly the scalar operations
  *   dx = xj - xi; ...; r2 = ((dx*dx + dy*dy) + dz*dz) + eps2;
  *   f = gmj / (r2 * sqrt(r2)); ax += f * dx; ...
  * for j = 0, 1, ..., n_active - 1 in that order, so all of them agree to the bit.
  * The sources that lie inside the tile itself (at most one tile's worth) are added
  * by the same operations in scalar code, skipping each target's own index.
- * Targets [t0, t1) are read from x, y, z (t0 a multiple of the tile width); the
- * function returns the first of them whose acceleration is not finite, or -1. */
-#define LB_DEFINE_TILES(NAME, ATTRIBUTE, VT, LANES, K, SET1, LOADU, STOREU, ADD, SUB, MUL,  \
-                        DIV, SQRT)                                                        \
-ATTRIBUTE static ptrdiff_t NAME(const double *restrict x, const double *restrict y,        \
-                                const double *restrict z, const double *restrict gm,       \
-                                ptrdiff_t n_active, ptrdiff_t t0, ptrdiff_t t1, double eps2, \
-                                double *restrict acc)                                      \
+ * Targets [t0, t1) (t0 a multiple of the tile width) are read from position; sources
+ * from x, y, z, gm.  Returns the first target whose acceleration is not finite, or -1. */
+#define LB_DEFINE_TILES(NAME, ATTRIBUTE, VT, LANES, K, SET1, LOADU, STOREU, LOAD3, STORE3,  \
+                        ADD, SUB, MUL, DIV, SQRT)                                         \
+ATTRIBUTE static ptrdiff_t NAME(const double *restrict position, const double *restrict x, \
+                                const double *restrict y, const double *restrict z,        \
+                                const double *restrict gm, ptrdiff_t n_active, ptrdiff_t t0,\
+                                ptrdiff_t t1, double eps2, double *restrict acc)           \
 {                                                                                         \
     enum { T = (LANES) * (K) };                                                            \
     const VT veps2 = SET1(eps2), zero = SET1(0.0);                                         \
@@ -91,21 +93,23 @@ ATTRIBUTE static ptrdiff_t NAME(const double *restrict x, const double *restrict
         double bx[T], by[T], bz[T];                                                        \
         VT tx[K], ty[K], tz[K], ax[K], ay[K], az[K];                                       \
         const int width = (int)(t1 - i0 < T ? t1 - i0 : T);                                \
-        const double *px = x + i0, *py = y + i0, *pz = z + i0;                             \
-        if (width < T) { /* the last, partial tile: pad with copies of its first body */   \
+        if (width == T) {                                                                  \
+            for (int k = 0; k < (K); k++)                                                  \
+                LOAD3(position + 3 * (i0 + k * (LANES)), &tx[k], &ty[k], &tz[k]);          \
+        } else { /* the last, partial tile: pad with copies of its first body */           \
             for (int l = 0; l < T; l++) {                                                  \
-                bx[l] = x[i0 + (l < width ? l : 0)];                                       \
-                by[l] = y[i0 + (l < width ? l : 0)];                                       \
-                bz[l] = z[i0 + (l < width ? l : 0)];                                       \
+                const ptrdiff_t i = i0 + (l < width ? l : 0);                              \
+                bx[l] = position[3 * i];                                                   \
+                by[l] = position[3 * i + 1];                                               \
+                bz[l] = position[3 * i + 2];                                               \
             }                                                                              \
-            px = bx;                                                                       \
-            py = by;                                                                       \
-            pz = bz;                                                                       \
+            for (int k = 0; k < (K); k++) {                                                \
+                tx[k] = LOADU(bx + k * (LANES));                                           \
+                ty[k] = LOADU(by + k * (LANES));                                           \
+                tz[k] = LOADU(bz + k * (LANES));                                           \
+            }                                                                              \
         }                                                                                  \
         for (int k = 0; k < (K); k++) {                                                    \
-            tx[k] = LOADU(px + k * (LANES));                                               \
-            ty[k] = LOADU(py + k * (LANES));                                               \
-            tz[k] = LOADU(pz + k * (LANES));                                               \
             ax[k] = zero;                                                                  \
             ay[k] = zero;                                                                  \
             az[k] = zero;                                                                  \
@@ -156,25 +160,26 @@ ATTRIBUTE static ptrdiff_t NAME(const double *restrict x, const double *restrict
                 }                                                                          \
             }                                                                              \
         }                                                                                  \
-        for (int k = 0; k < (K); k++) {                                                    \
-            STOREU(bx + k * (LANES), ax[k]);                                               \
-            STOREU(by + k * (LANES), ay[k]);                                               \
-            STOREU(bz + k * (LANES), az[k]);                                               \
-        }                                                                                  \
         if (width == T) {                                                                  \
-            for (int k = 0; k < (K); k++) /* x * 0 is nan exactly when x is inf or nan */  \
+            for (int k = 0; k < (K); k++) {                                                \
+                STORE3(acc + 3 * (i0 + k * (LANES)), ax[k], ay[k], az[k]);                 \
+                /* x * 0 is nan exactly when x is inf or nan */                            \
                 check = ADD(check, ADD(ADD(MUL(ax[k], zero), MUL(ay[k], zero)),            \
                                        MUL(az[k], zero)));                                 \
+            }                                                                              \
         } else {                                                                           \
-            for (int l = 0; l < width && first_bad < 0; l++)                               \
-                if (!(isfinite(bx[l]) && isfinite(by[l]) && isfinite(bz[l])))              \
+            for (int k = 0; k < (K); k++) {                                                \
+                STOREU(bx + k * (LANES), ax[k]);                                           \
+                STOREU(by + k * (LANES), ay[k]);                                           \
+                STOREU(bz + k * (LANES), az[k]);                                           \
+            }                                                                              \
+            for (int l = 0; l < width; l++) {                                              \
+                if (first_bad < 0 && !(isfinite(bx[l]) && isfinite(by[l]) && isfinite(bz[l])))\
                     first_bad = i0 + l;                                                    \
-        }                                                                                  \
-        double *row = acc + 3 * i0;                                                        \
-        for (int l = 0; l < width; l++) {                                                  \
-            row[3 * l] = bx[l];                                                            \
-            row[3 * l + 1] = by[l];                                                        \
-            row[3 * l + 2] = bz[l];                                                        \
+                acc[3 * (i0 + l)] = bx[l];                                                 \
+                acc[3 * (i0 + l) + 1] = by[l];                                             \
+                acc[3 * (i0 + l) + 2] = bz[l];                                             \
+            }                                                                              \
         }                                                                                  \
     }                                                                                      \
     double c[LANES];                                                                       \
@@ -190,8 +195,8 @@ ATTRIBUTE static ptrdiff_t NAME(const double *restrict x, const double *restrict
 }
 
 typedef ptrdiff_t (*lb_gravity_tiles_fn)(const double *, const double *, const double *,
-                                         const double *, ptrdiff_t, ptrdiff_t, ptrdiff_t,
-                                         double, double *);
+                                         const double *, const double *, ptrdiff_t, ptrdiff_t,
+                                         ptrdiff_t, double, double *);
 
 #define LB_S_SET1(a) (a)
 #define LB_S_LOADU(p) (*(p))
@@ -202,23 +207,81 @@ typedef ptrdiff_t (*lb_gravity_tiles_fn)(const double *, const double *, const d
 #define LB_S_DIV(a, b) ((a) / (b))
 #define LB_S_SQRT(a) sqrt(a)
 
+/* Plain C rows <-> lanes, for the variants without a register transpose. */
+#define LB_S_LOAD3(p, px, py, pz) (*(px) = (p)[0], *(py) = (p)[1], *(pz) = (p)[2])
+#define LB_S_STORE3(p, vx, vy, vz) ((p)[0] = (vx), (p)[1] = (vy), (p)[2] = (vz))
+
 #if LB_DISPATCH
 #include <immintrin.h>
+/* SSE2, two rows: (x0 y0) (z0 x1) (y1 z1) <-> (x0 x1) (y0 y1) (z0 z1). */
+#define LB_SSE2_LOAD3(p, px, py, pz)                                                      \
+    do {                                                                                  \
+        const __m128d r0 = _mm_loadu_pd(p), r1 = _mm_loadu_pd((p) + 2);                   \
+        const __m128d r2 = _mm_loadu_pd((p) + 4);                                         \
+        *(px) = _mm_shuffle_pd(r0, r1, 2);                                                \
+        *(py) = _mm_shuffle_pd(r0, r2, 1);                                                \
+        *(pz) = _mm_shuffle_pd(r1, r2, 2);                                                \
+    } while (0)
+#define LB_SSE2_STORE3(p, vx, vy, vz)                                                     \
+    do {                                                                                  \
+        _mm_storeu_pd(p, _mm_shuffle_pd(vx, vy, 0));                                      \
+        _mm_storeu_pd((p) + 2, _mm_shuffle_pd(vz, vx, 2));                                \
+        _mm_storeu_pd((p) + 4, _mm_shuffle_pd(vy, vz, 3));                                \
+    } while (0)
+/* AVX2, four rows: (x0 y0 | z0 x1) (y1 z1 | x2 y2) (z2 x3 | y3 z3) <-> x, y, z. */
+#define LB_AVX2_LOAD3(p, px, py, pz)                                                      \
+    do {                                                                                  \
+        const __m256d r0 = _mm256_loadu_pd(p), r1 = _mm256_loadu_pd((p) + 4);            \
+        const __m256d r2 = _mm256_loadu_pd((p) + 8);                                      \
+        const __m256d xy = _mm256_permute2f128_pd(r0, r1, 0x30); /* x0 y0 | x2 y2 */      \
+        const __m256d zx = _mm256_permute2f128_pd(r0, r2, 0x21); /* z0 x1 | z2 x3 */      \
+        const __m256d yz = _mm256_permute2f128_pd(r1, r2, 0x30); /* y1 z1 | y3 z3 */      \
+        *(px) = _mm256_shuffle_pd(xy, zx, 0xA);                                           \
+        *(py) = _mm256_shuffle_pd(xy, yz, 0x5);                                           \
+        *(pz) = _mm256_shuffle_pd(zx, yz, 0xA);                                           \
+    } while (0)
+#define LB_AVX2_STORE3(p, vx, vy, vz)                                                     \
+    do {                                                                                  \
+        const __m256d xy = _mm256_shuffle_pd(vx, vy, 0x0); /* x0 y0 | x2 y2 */            \
+        const __m256d zx = _mm256_shuffle_pd(vz, vx, 0xA); /* z0 x1 | z2 x3 */            \
+        const __m256d yz = _mm256_shuffle_pd(vy, vz, 0xF); /* y1 z1 | y3 z3 */            \
+        _mm256_storeu_pd(p, _mm256_permute2f128_pd(xy, zx, 0x20));                        \
+        _mm256_storeu_pd((p) + 4, _mm256_permute2f128_pd(yz, xy, 0x30));                  \
+        _mm256_storeu_pd((p) + 8, _mm256_permute2f128_pd(zx, yz, 0x31));                  \
+    } while (0)
+/* AVX-512, eight rows: gathers and scatters with a fixed index vector. */
+#define LB_AVX512_ROWS _mm512_set_epi64(21, 18, 15, 12, 9, 6, 3, 0)
+#define LB_AVX512_LOAD3(p, px, py, pz)                                                    \
+    do {                                                                                  \
+        *(px) = _mm512_i64gather_pd(LB_AVX512_ROWS, (p), 8);                              \
+        *(py) = _mm512_i64gather_pd(LB_AVX512_ROWS, (p) + 1, 8);                          \
+        *(pz) = _mm512_i64gather_pd(LB_AVX512_ROWS, (p) + 2, 8);                          \
+    } while (0)
+#define LB_AVX512_STORE3(p, vx, vy, vz)                                                   \
+    do {                                                                                  \
+        _mm512_i64scatter_pd((p), LB_AVX512_ROWS, vx, 8);                                 \
+        _mm512_i64scatter_pd((p) + 1, LB_AVX512_ROWS, vy, 8);                             \
+        _mm512_i64scatter_pd((p) + 2, LB_AVX512_ROWS, vz, 8);                             \
+    } while (0)
+
 /* Baseline x86-64: SSE2, two doubles per register. */
 LB_DEFINE_TILES(lb_gravity_tiles_baseline, , __m128d, 2, LB_K_SSE2, _mm_set1_pd, _mm_loadu_pd,
-                _mm_storeu_pd, _mm_add_pd, _mm_sub_pd, _mm_mul_pd, _mm_div_pd, _mm_sqrt_pd)
-LB_DEFINE_TILES(lb_gravity_tiles_avx2, __attribute__((target("avx2"))), __m256d, 4, LB_K_AVX2,
-                _mm256_set1_pd, _mm256_loadu_pd, _mm256_storeu_pd, _mm256_add_pd,
-                _mm256_sub_pd, _mm256_mul_pd, _mm256_div_pd, _mm256_sqrt_pd)
-LB_DEFINE_TILES(lb_gravity_tiles_avx512, __attribute__((target("avx512f"))), __m512d, 8,
-                LB_K_AVX512, _mm512_set1_pd, _mm512_loadu_pd, _mm512_storeu_pd, _mm512_add_pd,
-                _mm512_sub_pd, _mm512_mul_pd, _mm512_div_pd, _mm512_sqrt_pd)
+                _mm_storeu_pd, LB_SSE2_LOAD3, LB_SSE2_STORE3, _mm_add_pd, _mm_sub_pd,
+                _mm_mul_pd, _mm_div_pd, _mm_sqrt_pd)
 #  define LB_TILE_BASELINE (2 * LB_K_SSE2)
+LB_DEFINE_TILES(lb_gravity_tiles_avx2, __attribute__((target("avx2"))), __m256d, 4, LB_K_AVX2,
+                _mm256_set1_pd, _mm256_loadu_pd, _mm256_storeu_pd, LB_AVX2_LOAD3,
+                LB_AVX2_STORE3, _mm256_add_pd, _mm256_sub_pd, _mm256_mul_pd, _mm256_div_pd,
+                _mm256_sqrt_pd)
+LB_DEFINE_TILES(lb_gravity_tiles_avx512, __attribute__((target("avx512f"))), __m512d, 8,
+                LB_K_AVX512, _mm512_set1_pd, _mm512_loadu_pd, _mm512_storeu_pd, LB_AVX512_LOAD3,
+                LB_AVX512_STORE3, _mm512_add_pd, _mm512_sub_pd, _mm512_mul_pd, _mm512_div_pd,
+                _mm512_sqrt_pd)
 #else
 /* Portable C (other CPUs, or -march=native where the compiler may vectorise it). */
 #  define LB_TILE_BASELINE 8
 LB_DEFINE_TILES(lb_gravity_tiles_baseline, , double, 1, 8, LB_S_SET1, LB_S_LOADU, LB_S_STOREU,
-                LB_S_ADD, LB_S_SUB, LB_S_MUL, LB_S_DIV, LB_S_SQRT)
+                LB_S_LOAD3, LB_S_STORE3, LB_S_ADD, LB_S_SUB, LB_S_MUL, LB_S_DIV, LB_S_SQRT)
 #endif
 
 /* A variant: its tile loop and tile width (targets per tile). */
@@ -314,12 +377,7 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
     for (ptrdiff_t c = 0; c < nchunks; c++) {
         const ptrdiff_t lo = c * per_chunk * v.tile;
         const ptrdiff_t hi = lo + per_chunk * v.tile < n ? lo + per_chunk * v.tile : n;
-        for (ptrdiff_t i = lo > n_active ? lo : n_active; i < hi; i++) {
-            x[i] = position[3 * i];
-            y[i] = position[3 * i + 1];
-            z[i] = position[3 * i + 2];
-        }
-        ptrdiff_t b = v.tiles(x, y, z, gm, n_active, lo, hi, eps2, acc);
+        ptrdiff_t b = v.tiles(position, x, y, z, gm, n_active, lo, hi, eps2, acc);
         if (b >= 0 && b < first_bad) first_bad = b;
     }
     if (first_bad < n) {
