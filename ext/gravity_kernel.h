@@ -1,12 +1,13 @@
 /* Direct-summation gravity: the hot loop of libration.
  *
- * Layout.  Each call first copies the positions into a structure of arrays (x, y, z;
- * and G*m for the massive bodies, the sources j < n_active).  Targets are then taken
- * in tiles of a few vector registers' width; a tile keeps its accumulators in
- * registers while it walks over all the sources (each source broadcast to every
- * lane), so a call costs O(n) copying plus the O(n_active * n) sum, with no
- * per-source memory traffic for the accumulators.  This keeps the test-particle
- * case (few sources, very many targets) near the per-interaction rate of the full one.
+ * Layout.  Each call copies the massive bodies (the sources, j < n_active) into a
+ * structure of arrays (x, y, z, G*m).  Targets are taken in tiles of one to a few
+ * vector registers' width, read straight from the (n, 3) positions and transposed in
+ * registers; a tile keeps its accumulators in registers while it walks over all the
+ * sources (each broadcast to every lane), then writes its rows of the (n, 3)
+ * accelerations.  So a call costs O(n_active) set-up plus the O(n_active * n) sum,
+ * and the test-particle case (few sources, very many targets) runs near the
+ * per-interaction rate of the full one.
  *
  * Exactness.  Every target's sum runs over the sources in index order
  * j = 0, 1, ..., n_active - 1 (its own index skipped), one correctly rounded IEEE
@@ -17,14 +18,17 @@
  * count, and the same as a plain scalar double loop in that order.
  *
  * Speed.  The sum needs one sqrt and one division per interaction; both run on the
- * same divider unit, whose throughput bounds the kernel (on the Xeon this was tuned
- * on, about 0.55 ns per sqrt and 0.5 ns per division per double, so ~9.5e8
- * interactions/s per core at best).  Everything else is arranged to stay off it.
+ * same divider unit, whose throughput bounds the kernel: on the Xeon this was tuned
+ * on, a loop of nothing but independent sqrt-multiply-divide chains runs at 1.08 ns
+ * per element with AVX2 (9.3e8/s; 1.21 ns with AVX-512), so that is the ceiling per
+ * core.  Everything else (loads, transposes, accumulators) is arranged around it.
  *
  * Dispatch.  On x86-64 with gcc or clang the tile loop is compiled for SSE2 (the
  * x86-64 baseline), AVX2 and AVX-512F with intrinsics, and the variant named by
  * lb_gravity_isa_best() is chosen at run time, so a portable build still uses the wide
- * vector units.  Elsewhere (or with LIBRATION_NO_CLONES) one plain C variant is built.
+ * vector units (also under LIBRATION_NATIVE=1, which only tunes the rest).  Elsewhere
+ * (or with -DLIBRATION_NO_CLONES) one plain C variant is built, for the compiler to
+ * vectorise as it can.
  */
 #ifndef LIBRATION_GRAVITY_KERNEL_H
 #define LIBRATION_GRAVITY_KERNEL_H
@@ -36,7 +40,7 @@
 #endif
 
 #if (defined(__GNUC__) || defined(__clang__)) && defined(__x86_64__) \
-    && !defined(LIBRATION_NATIVE) && !defined(LIBRATION_NO_CLONES)
+    && !defined(LIBRATION_NO_CLONES)
 #  define LB_DISPATCH 1
 #else
 #  define LB_DISPATCH 0
@@ -53,12 +57,16 @@
 #  define LB_K_AVX512 1
 #endif
 
-/* Below this many interactions (n_active * n) a second thread costs more than it
- * saves: an OpenMP parallel region costs a few microseconds, the kernel does about
- * 8e8 interactions per second per core (bench/gravity.py measures both). */
-#define LB_PARALLEL_MIN_INTERACTIONS 65536.0
+/* Below this many interactions (n_active * n) the kernel stays on one thread.  With
+ * the worker threads warm (back-to-back calls, as in a stepping loop) two threads
+ * broke even at about 2300 interactions (N = 48) on the development machine and gave
+ * 1.7x at 16384 (N = 128); on a machine whose cores are busy with other work, extra
+ * threads lose at any size (bench/gravity.py measures it; see bench/README.md). */
+#ifndef LB_PARALLEL_MIN_INTERACTIONS
+#  define LB_PARALLEL_MIN_INTERACTIONS 16384.0
+#endif
 
-/* Most targets per chunk of work (x, y, z and the output stay in the L2 cache). */
+/* Most targets per chunk of work handed to a thread. */
 #define LB_CHUNK_TARGETS 4096
 
 /* Instruction-set variants of the tile loop (lb_gravity_isa_* return these). */
@@ -351,11 +359,10 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
         gm[j] = G * mass[j];
     }
     const ptrdiff_t ntiles = (n + v.tile - 1) / v.tile;
-    /* Targets go in chunks of whole tiles: a chunk copies its own test particles into
-     * x, y, z and sums at once, while they are still in cache.  Chunks hold at most
-     * LB_CHUNK_TARGETS bodies, and with threads at least 8 chunks per thread, handed
-     * out on demand (a thread that starts late on a busy machine just takes fewer).
-     * How the chunks fall never changes a bit of the result. */
+    /* Targets go in chunks of whole tiles, at most LB_CHUNK_TARGETS bodies each and,
+     * with threads, at least 8 chunks per thread, handed out on demand (a thread that
+     * starts late on a busy machine just takes fewer).  How the chunks fall never
+     * changes a bit of the result. */
     ptrdiff_t per_chunk = LB_CHUNK_TARGETS / v.tile;
     int parallel = 0;
 #ifdef _OPENMP
