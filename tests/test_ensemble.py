@@ -102,12 +102,27 @@ def test_sequential_pool_and_dask_give_identical_members(tmp_path):
             summary = json.load(open(os.path.join(victim.member_directory(0), "summary.json")))
             assert summary["resumed_at"] is not None
             assert_bitwise_equal(reference, victim)
+            assert_same_output(reference, victim, 0)
     finally:
         cluster.close()
 
 
 LONG_MEMBERS = dict(grid={"outer.semi_major_axis": [1.4, 1.5]}, until=300 * TWO_PI, step=TWO_PI / 100,
-                    sample_every=TWO_PI / 10, checkpoint_interval=0.02)
+                    sample_every=TWO_PI / 10, checkpoint_interval=0.02, output_every=TWO_PI)
+
+
+def assert_same_output(a: Ensemble, b: Ensemble, index: int) -> None:
+    """The members' HDF5 snapshot files hold the same data, bit for bit, and are complete."""
+    from libration.io import open_output
+
+    fa = open_output(os.path.join(a.member_directory(index), "output.h5"))
+    fb = open_output(os.path.join(b.member_directory(index), "output.h5"))
+    assert fa.complete and fb.complete
+    assert len(fa) == len(fb) == 301  # t = 0 and one per orbit to the end
+    pairs = [(fa.time, fb.time), (fa.position, fb.position), (fa.velocity, fb.velocity),
+             (fa.energy_error, fb.energy_error), (fa.elements["eccentricity"], fb.elements["eccentricity"])]
+    for x, y in pairs:
+        assert np.array_equal(x.view(np.uint64), y.view(np.uint64))
 
 
 def kill_when_checkpointed(member: str, pids) -> threading.Thread:
@@ -175,6 +190,7 @@ def test_killed_worker_leaves_member_resumable(tmp_path):
     summary = json.load(open(os.path.join(member, "summary.json")))
     assert summary["resumed_at"] is not None and 0 < summary["resumed_at"] < 300 * TWO_PI
     assert_bitwise_equal(reference, resumed)
+    assert_same_output(reference, resumed, 0)
 
 
 def test_failing_member_is_reported_and_others_complete(tmp_path):

@@ -16,6 +16,7 @@ Files (the ensemble directory)::
     members/00012/summary.json  written when the member has finished (or stopped)
     members/00012/failure.json  written when the member has failed, with the message
     members/00012/series.csv    sampled time series of the tracked bodies
+    members/00012/output.h5     HDF5 snapshots (with ``output_every``)
 
 The member files are the truth; the manifest is rewritten from them by the process that
 called :meth:`Ensemble.run` (one writer, atomic replace).  Running an ensemble again in the
@@ -287,6 +288,9 @@ class _Tracker:
         self.max_eccentricity = np.zeros(len(self.tracked))
         self.series: list[list[float]] = []
         self.stop_reason = ""
+        self.angular_momentum0 = np.full(3, np.nan)
+        self.output_cursor = 0
+        self.output_sample = -1  # index of the last sample written to the output file
 
     # ---- persistence (the checkpoint format takes dicts of scalars, strings and arrays)
     def memory(self) -> dict[str, Any]:
@@ -297,6 +301,8 @@ class _Tracker:
                 "first_encounter_bodies": self.first_encounter_bodies,
                 "first_escape_time": self.first_escape_time, "first_escape_body": self.first_escape_body,
                 "escape_distance": self.escape_distance, "stop_reason": self.stop_reason,
+                "angular_momentum0": self.angular_momentum0.copy(), "output_cursor": self.output_cursor,
+                "output_sample": self.output_sample,
                 "max_eccentricity": self.max_eccentricity.copy(),
                 "series": np.array(self.series, dtype=np.float64).reshape(-1, columns)}
 
@@ -306,6 +312,9 @@ class _Tracker:
                     "stop_reason"):
             setattr(self, key, memory[key])
         self.next_sample = int(self.next_sample)
+        self.angular_momentum0 = np.array(memory["angular_momentum0"], dtype=np.float64)
+        self.output_cursor = int(memory["output_cursor"])
+        self.output_sample = int(memory["output_sample"])
         self.max_eccentricity = np.array(memory["max_eccentricity"], dtype=np.float64)
         self.series = np.asarray(memory["series"], dtype=np.float64).tolist()
 
@@ -319,6 +328,7 @@ class _Tracker:
         energy = system.energy(propagator._settings["softening"])
         if math.isnan(self.energy0):
             self.energy0 = energy
+            self.angular_momentum0 = system.angular_momentum()
         scale = abs(self.energy0) if self.energy0 != 0 else 1.0
         self.max_energy_error = max(self.max_energy_error, abs(energy - self.energy0) / scale)
         met = ""
@@ -393,6 +403,71 @@ def _two_body(mu: np.ndarray, r: np.ndarray, v: np.ndarray) -> tuple[np.ndarray,
     return np.where(bad, np.nan, a), np.where(bad, np.nan, e), np.where(bad, np.nan, inclination)
 
 
+class _MemberOutput:
+    """A member's HDF5 snapshots (schema of :mod:`libration.io.output`), every
+    ``output_stride``-th sample and the last one; resumable at the checkpoint's cursor."""
+
+    FILENAME = "output.h5"
+
+    def __init__(self, task: Mapping[str, Any], writer) -> None:
+        self.task = task
+        self.writer = writer
+        self.stride = int(task["output_stride"])
+        self.state = None
+
+    @classmethod
+    def create(cls, task: Mapping[str, Any], propagator, tracker: _Tracker) -> _MemberOutput:
+        from .io.output import OutputWriter
+        from .io.runner import _attrs
+
+        state = cls._state(task, propagator, tracker)
+        writer = OutputWriter(os.path.join(task["directory"], cls.FILENAME), propagator.names,
+                              propagator.integrator.radius, _attrs(propagator, state), "",
+                              state["elements_primary"])
+        self = cls(task, writer)
+        self.state = state
+        self.sample(propagator, tracker, final=False)
+        return self
+
+    @classmethod
+    def resume(cls, task: Mapping[str, Any], tracker: _Tracker) -> _MemberOutput:
+        from .io.output import OutputWriter
+
+        writer = OutputWriter.reopen(os.path.join(task["directory"], cls.FILENAME), tracker.output_cursor)
+        return cls(task, writer)
+
+    @staticmethod
+    def _state(task, propagator, tracker: _Tracker) -> dict[str, Any]:
+        settings = task["settings"]
+        return {"energy0": tracker.energy0, "angular_momentum0": tracker.angular_momentum0,
+                "elements": True, "elements_primary": propagator.names[int(task["primary"])],
+                "every": abs(settings["sample_every"]) * int(task["output_stride"]),
+                "t_start": settings["start"]}
+
+    def sample(self, propagator, tracker: _Tracker, final: bool) -> None:
+        from .io.runner import _snapshot
+
+        index = tracker.next_sample - 1
+        if index == tracker.output_sample or not (final or index % self.stride == 0):
+            return
+        if self.state is None:
+            self.state = self._state(self.task, propagator, tracker)
+        row, names = _snapshot(propagator, self.state)
+        self.writer.append(row, names)
+        tracker.output_sample = index
+
+    def flush(self, tracker: _Tracker) -> None:
+        self.writer.flush()
+        tracker.output_cursor = self.writer.count
+
+    def close(self, event_log) -> None:
+        self.writer.close(event_log)
+
+    def abandon(self) -> None:
+        if self.writer.file is not None:
+            self.writer.abandon()
+
+
 def _event_times(event_log: Sequence[Mapping[str, Any]]) -> dict[str, float]:
     """First time of each event family in a propagator's event log (nan when absent)."""
     found = {"encounter": math.nan, "collision": math.nan, "escape": math.nan}
@@ -416,8 +491,12 @@ def _member_system(task: Mapping[str, Any]) -> System:
                             int(task["primary"]))
 
 
-def _save_member(path: str, propagator, tracker: _Tracker, task: Mapping[str, Any]) -> None:
+def _save_member(path: str, propagator, tracker: _Tracker, task: Mapping[str, Any],
+                 output: _MemberOutput | None = None) -> None:
     from .io import checkpoint
+
+    if output is not None:  # the output file holds every snapshot the checkpoint counts
+        output.flush(tracker)
 
     checkpoint.write(path, {"propagator": propagator.to_memory(), "tracker": tracker.memory(),
                             "member": {"index": int(task["index"]), "fingerprint": task["fingerprint"]}},
@@ -437,6 +516,7 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
     os.makedirs(directory, exist_ok=True)
     state_path = os.path.join(directory, "state.ckpt")
     wall_start = _time.perf_counter()
+    output: _MemberOutput | None = None
     try:
         tracker: _Tracker
         if os.path.exists(state_path):
@@ -451,6 +531,7 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
             tracker = _Tracker(task, propagator.system)
             tracker.restore(content["tracker"])
             resumed_at = propagator.time
+            output = _MemberOutput.resume(task, tracker) if task["output_stride"] else None
         else:
             system = _member_system(task)
             settings = task["settings"]
@@ -461,6 +542,7 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
             tracker = _Tracker(task, system)
             tracker.sample(propagator)
             resumed_at = None
+            output = _MemberOutput.create(task, propagator, tracker) if task["output_stride"] else None
         start, until, every = task["settings"]["start"], task["settings"]["until"], task["settings"]["sample_every"]
         interval = float(task["checkpoint_interval"])
         stop_on = set(task["stop_on"])
@@ -492,10 +574,14 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
                 elif met in stop_on:
                     reason = f"stopped on {met} at time {propagator.time!r}"
                 tracker.stop_reason = reason
+                if output is not None:
+                    output.sample(propagator, tracker, final=bool(reason) or propagator.time == until)
                 if _time.perf_counter() - last_save >= interval:
-                    _save_member(state_path, propagator, tracker, task)
+                    _save_member(state_path, propagator, tracker, task, output)
                     last_save = _time.perf_counter()
-        _save_member(state_path, propagator, tracker, task)
+        _save_member(state_path, propagator, tracker, task, output)
+        if output is not None:
+            output.close(propagator.event_log)
         events = _event_times(propagator.event_log)
         first_encounter = tracker.first_encounter_time
         if not math.isnan(events["encounter"]) and not events["encounter"] >= first_encounter:
@@ -527,6 +613,8 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
             os.remove(failure_path)
         return summary
     except Exception as exc:  # noqa: BLE001 - a member's failure is a result, never the ensemble's
+        if output is not None:
+            output.abandon()
         failure = {"index": task["index"], "status": "failed",
                    "message": f"{type(exc).__name__}: {exc}", "fingerprint": task["fingerprint"],
                    "wall_seconds": _time.perf_counter() - wall_start}
@@ -659,6 +747,11 @@ class Ensemble:
         As for :class:`~libration.Propagator` (``threads`` per member, default 1).
     options : mapping, optional
         Method options.
+    output_every : float, optional
+        Each member also writes HDF5 snapshots (``members/NNNNN/output.h5``, the schema of
+        :mod:`libration.io.output`, with elements about ``primary``) every this much time
+        (rounded to a whole number of samples) and at its end; needs h5py.  Default: none
+        (the sampled ``series.csv`` only).
     """
 
     def __init__(self, base: System | Callable[[dict], System], directory: str | os.PathLike, *,
@@ -670,7 +763,8 @@ class Ensemble:
                  track: Sequence[str] | None = None, primary: int = 0, frame: str = "jacobi",
                  encounter_hill: float = 1.0, escape_distance: float | None = None,
                  stop_on: Iterable[str] = (), softening: float = 0.0, events: dict | None = None,
-                 threads: int = 1, options: Mapping[str, Any] | None = None) -> None:
+                 threads: int = 1, options: Mapping[str, Any] | None = None,
+                 output_every: float | None = None) -> None:
         from .methods import get_method
 
         self.directory = os.path.abspath(os.fspath(directory))
@@ -683,6 +777,12 @@ class Ensemble:
         if sample_every <= 0:
             raise ValidationError(f"sample_every must be > 0 (time unit), got {sample_every!r}")
         sample_every = math.copysign(sample_every, until - start)
+        output_stride = 0
+        if output_every is not None:
+            output_every = _number(output_every, "output_every")
+            if output_every <= 0:
+                raise ValidationError(f"output_every must be > 0 (time unit), got {output_every!r}")
+            output_stride = max(1, round(output_every / abs(sample_every)))
         checkpoint_interval = _number(checkpoint_interval, "checkpoint_interval")
         if checkpoint_interval < 0:
             raise ValidationError(f"checkpoint_interval must be >= 0 seconds, got {checkpoint_interval!r}")
@@ -741,7 +841,8 @@ class Ensemble:
         self.definition = {"base": base_json, "settings": self.settings, "parameters": self.parameters,
                            "members": self.parameter_sets, "track": track, "primary": int(primary),
                            "frame": frame, "encounter_hill": encounter_hill,
-                           "escape_distance": escape_distance, "stop_on": list(stop_on)}
+                           "escape_distance": escape_distance, "stop_on": list(stop_on),
+                           "output_stride": output_stride}
         self.fingerprint = _fingerprint(self.definition)
         self.checkpoint_interval = checkpoint_interval
         # Misuse of the method settings raises now rather than once per member.
@@ -765,7 +866,8 @@ class Ensemble:
     def tasks(self) -> list[dict[str, Any]]:
         """The plain-dict task of every member (what :func:`run_member` receives)."""
         common = {key: self.definition[key] for key in ("base", "settings", "track", "primary", "frame",
-                                                        "encounter_hill", "escape_distance", "stop_on")}
+                                                        "encounter_hill", "escape_distance", "stop_on",
+                                                        "output_stride")}
         return [dict(common, index=i, parameters=dict(p), directory=self.member_directory(i),
                      fingerprint=self.fingerprint, checkpoint_interval=self.checkpoint_interval)
                 for i, p in enumerate(self.parameter_sets)]
@@ -1056,7 +1158,8 @@ class Ensemble:
                    checkpoint_interval=manifest.get("checkpoint_interval", 60.0), track=d["track"],
                    primary=d["primary"], frame=d["frame"], encounter_hill=d["encounter_hill"],
                    escape_distance=d["escape_distance"], stop_on=d["stop_on"], softening=s["softening"],
-                   events=s["events"], threads=s["threads"], options=s["options"])
+                   events=s["events"], threads=s["threads"], options=s["options"],
+                   output_every=d["output_stride"] * abs(s["sample_every"]) if d.get("output_stride") else None)
         if self.fingerprint != manifest["fingerprint"]:
             raise FileFormatError(f"{path}: the stored definition does not reproduce its fingerprint; the "
                                   "manifest was edited or damaged")
@@ -1204,7 +1307,7 @@ def plot_path(path: str | os.PathLike, x: str | None = None, y: str | None = Non
 # ================================================================================ scenario files
 _ENSEMBLE_KEYS = {"directory", "until", "start", "grid", "members", "perturb", "count", "seed",
                   "sample_every", "checkpoint_interval", "track", "primary", "frame", "encounter_hill",
-                  "escape_distance", "stop_on", "workers", "threads"}
+                  "escape_distance", "stop_on", "workers", "threads", "output_every"}
 
 
 def ensemble_options(table: Mapping[str, Any], where: str = "[ensemble]") -> dict[str, Any]:
