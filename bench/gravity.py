@@ -45,7 +45,7 @@ def isa_rows(n: int = 1024) -> list[dict]:
     reference = _gravity.accelerations_with_isa("baseline", position, mass, n, 1.0)
     rows = []
     for isa in _gravity.available_isas():
-        seconds = best_time(lambda: _gravity.accelerations_with_isa(isa, position, mass, n, 1.0))
+        seconds = best_time(lambda: _gravity.accelerations_with_isa(isa, position, mass, n, 1.0), repeats=9)
         same = bool(np.array_equal(_gravity.accelerations_with_isa(isa, position, mass, n, 1.0), reference))
         rows.append({"isa": isa, "n": n, "rate": (n * n - n) / seconds, "same_bits_as_baseline": same})
     return rows
@@ -68,11 +68,12 @@ def main(argv: list[str] | None = None) -> int:
     rows = []
     for n in full:
         single = n * n > NUMPY_SINGLE_SHOT_INTERACTIONS
-        rows.append(measure("full", n, n, threads, min_seconds=0.0 if single else 0.1,
-                            repeats=2 if single else 3))
+        rows.append(measure("full", n, n, threads, min_seconds=0.05, repeats=5 if single else 9,
+                            numpy_repeats=1 if single else 5))
         print(f"  full N={n}: done", file=sys.stderr, flush=True)
     for n in particles:
-        rows.append(measure("particles", n + PARTICLE_SOURCES, PARTICLE_SOURCES, threads, min_seconds=0.1))
+        rows.append(measure("particles", n + PARTICLE_SOURCES, PARTICLE_SOURCES, threads, min_seconds=0.05,
+                            repeats=9, numpy_repeats=3))
         print(f"  particles N={n}: done", file=sys.stderr, flush=True)
     variants = isa_rows()
     elapsed = time.perf_counter() - started

@@ -80,17 +80,32 @@ def numpy_accelerations(position: np.ndarray, mass: np.ndarray, n_active: int, G
 
 def best_time(call: Callable[[], object], min_seconds: float = 0.05, repeats: int = 3) -> float:
     """Seconds per call: the best of ``repeats`` batches, each long enough to time."""
-    call()  # warm up (first-touch of buffers, thread pool start)
-    start = time.perf_counter()
-    call()
-    once = time.perf_counter() - start
-    batch = max(1, int(min_seconds / max(once, 1e-9)))
-    best = once
-    for _ in range(repeats):
+    return best_times([call], min_seconds, repeats)[0]
+
+
+def best_times(calls: Sequence[Callable[[], object]], min_seconds: float = 0.05,
+               repeats: int = 3) -> list[float]:
+    """Seconds per call of each of ``calls``, their batches interleaved.
+
+    Each call is warmed up, then timed in ``repeats`` rounds; a round times one batch
+    of each call in turn (a batch lasts about ``min_seconds``), and the best batch of
+    each call counts.  Interleaving exposes every call to the same moments of a
+    shared machine, so their ratios stay fair when other work comes and goes.
+    """
+    batches, best = [], []
+    for call in calls:
+        call()  # warm up (first touch of buffers, thread start)
         start = time.perf_counter()
-        for _ in range(batch):
-            call()
-        best = min(best, (time.perf_counter() - start) / batch)
+        call()
+        once = time.perf_counter() - start
+        batches.append(max(1, int(min_seconds / max(once, 1e-9))))
+        best.append(once)
+    for _ in range(repeats):
+        for k, call in enumerate(calls):
+            start = time.perf_counter()
+            for _ in range(batches[k]):
+                call()
+            best[k] = min(best[k], (time.perf_counter() - start) / batches[k])
     return best
 
 
@@ -104,7 +119,8 @@ def make_system(n: int, n_active: int, seed: int = 2024) -> tuple[np.ndarray, np
 
 
 def measure(case: str, n: int, n_active: int, threads: Sequence[int] = (1, 2),
-            baseline: bool = True, min_seconds: float = 0.05, repeats: int = 3) -> dict:
+            baseline: bool = True, min_seconds: float = 0.05, repeats: int = 3,
+            numpy_repeats: int | None = None) -> dict:
     """Time the kernel (each thread count) and the numpy baseline on one system.
 
     Returns a row: ``case``, ``n`` (bodies), ``n_active`` (sources), ``interactions``
@@ -112,21 +128,23 @@ def measure(case: str, n: int, n_active: int, threads: Sequence[int] = (1, 2),
     ``kernel_T_s`` (seconds per call) and ``kernel_T_rate`` (interactions/s), and
     ``numpy_s``/``numpy_rate`` (None when skipped), ``vs_numpy`` (one-thread kernel
     rate over numpy's) and ``speedup_2`` (two threads over one, when measured).
+    Thread counts are timed in interleaved rounds (:func:`best_times`); numpy after
+    them, with ``numpy_repeats`` rounds (default ``repeats``).
     """
     position, mass = make_system(n, n_active)
     interactions = n_active * n - n_active
     scratch = _gravity.workspace(n)
     out = np.empty((n, 3))
     row: dict = {"case": case, "n": n, "n_active": n_active, "interactions": interactions}
-    for t in threads:
-        seconds = best_time(lambda: _gravity.accelerations(position, mass, n_active, 1.0, 0.0, t,
-                                                           scratch, out), min_seconds, repeats)
+    kernels = [lambda t=t: _gravity.accelerations(position, mass, n_active, 1.0, 0.0, t, scratch, out)
+               for t in threads]
+    for t, seconds in zip(threads, best_times(kernels, min_seconds, repeats)):
         row[f"kernel_{t}_s"] = seconds
         row[f"kernel_{t}_rate"] = interactions / seconds
     row["numpy_s"] = row["numpy_rate"] = row["vs_numpy"] = None
     if baseline:
         seconds = best_time(lambda: numpy_accelerations(position, mass, n_active, 1.0),
-                            min_seconds, max(1, repeats - 1))
+                            min_seconds, repeats if numpy_repeats is None else numpy_repeats)
         row["numpy_s"] = seconds
         row["numpy_rate"] = interactions / seconds
         if "kernel_1_rate" in row:
