@@ -111,14 +111,14 @@ LONG_MEMBERS = dict(grid={"outer.semi_major_axis": [1.4, 1.5]}, until=300 * TWO_
                     sample_every=TWO_PI / 10, checkpoint_interval=0.02, output_every=TWO_PI)
 
 
-def assert_same_output(a: Ensemble, b: Ensemble, index: int) -> None:
+def assert_same_output(a: Ensemble, b: Ensemble, index: int, count: int | None = 301) -> None:
     """The members' HDF5 snapshot files hold the same data, bit for bit, and are complete."""
     from libration.io import open_output
 
     fa = open_output(os.path.join(a.member_directory(index), "output.h5"))
     fb = open_output(os.path.join(b.member_directory(index), "output.h5"))
     assert fa.complete and fb.complete
-    assert len(fa) == len(fb) == 301  # t = 0 and one per orbit to the end
+    assert len(fa) == len(fb) and (count is None or len(fa) == count)
     pairs = [(fa.time, fb.time), (fa.position, fb.position), (fa.velocity, fb.velocity),
              (fa.energy_error, fb.energy_error), (fa.elements["eccentricity"], fb.elements["eccentricity"])]
     for x, y in pairs:
@@ -190,7 +190,7 @@ def test_killed_worker_leaves_member_resumable(tmp_path):
     summary = json.load(open(os.path.join(member, "summary.json")))
     assert summary["resumed_at"] is not None and 0 < summary["resumed_at"] < 300 * TWO_PI
     assert_bitwise_equal(reference, resumed)
-    assert_same_output(reference, resumed, 0)
+    assert_same_output(reference, resumed, 0)  # t = 0 and one snapshot per orbit to the end
 
 
 def test_failing_member_is_reported_and_others_complete(tmp_path):
@@ -393,3 +393,43 @@ def test_a_base_function_builds_each_member(tmp_path):
     assert reopened.fingerprint == ensemble.fingerprint
     with pytest.raises(lb.ValidationError, match="module-level function"):
         Ensemble(lambda p: three_body(), tmp_path / "g", until=1.0, step=0.1, members=[{"x": 1.0}])
+
+
+@pytest.mark.parametrize("method, settings", [("yoshida4", {"step": TWO_PI / 50}),
+                                              ("wisdom-holman", {"step": TWO_PI / 40}),
+                                              ("bulirsch-stoer", {"tolerance": 1e-10})],
+                         ids=["yoshida4", "wisdom-holman", "bulirsch-stoer"])
+def test_resumed_member_matches_uninterrupted_for_each_method(tmp_path, method, settings):
+    import copy
+
+    from libration.ensemble import run_member
+
+    definition = dict(until=10 * TWO_PI, method=method, grid={"outer.semi_major_axis": [1.45]},
+                      sample_every=TWO_PI / 7, output_every=TWO_PI, **settings)
+    reference = Ensemble(three_body(), tmp_path / "reference", **definition)
+    reference.run("sequential")
+    interrupted = Ensemble(three_body(), tmp_path / "interrupted", **definition)
+    interrupted._prepare_directory()
+    # Run member 0 only part of the way (as a worker lost after a checkpoint would have),
+    # then let the ensemble resume it from that checkpoint.
+    # Stop at sample 28, which is also an output sample (7 samples per orbit), exactly
+    # where an uninterrupted run samples it (on the step grid for fixed steps).
+    task = copy.deepcopy(interrupted.tasks()[0])
+    if "step" in settings:
+        stride = round((TWO_PI / 7) / settings["step"])
+        stop = 0.0 + (28 * stride) * settings["step"]
+    else:
+        stop = 0.0 + 28 * (TWO_PI / 7)
+    task["settings"]["until"] = stop
+    assert run_member(task)["status"] == "finished"
+    os.remove(os.path.join(interrupted.member_directory(0), "summary.json"))
+    assert interrupted.status() == {"interrupted": 1}
+    table = interrupted.run("sequential")
+    assert table["status"][0] == "finished"
+    summary = json.load(open(os.path.join(interrupted.member_directory(0), "summary.json")))
+    assert summary["resumed_at"] == stop
+    assert_bitwise_equal(reference, interrupted)
+    with open(os.path.join(reference.member_directory(0), "series.csv")) as a, \
+            open(os.path.join(interrupted.member_directory(0), "series.csv")) as b:
+        assert a.read() == b.read()
+    assert_same_output(reference, interrupted, 0, count=None)
