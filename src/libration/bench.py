@@ -171,8 +171,8 @@ def quick_bench() -> list[dict]:
         One row per system, as :func:`measure` returns them.
     """
     threads = (1, 2) if _gravity.HAVE_OPENMP and usable_cores() >= 2 else (1,)
-    rows = [measure("full", n, n, threads, min_seconds=0.03) for n in QUICK_FULL_SIZES]
-    rows += [measure("particles", n + PARTICLE_SOURCES, PARTICLE_SOURCES, threads, min_seconds=0.03)
+    rows = [measure("full", n, n, threads, min_seconds=0.02, repeats=5) for n in QUICK_FULL_SIZES]
+    rows += [measure("particles", n + PARTICLE_SOURCES, PARTICLE_SOURCES, threads, min_seconds=0.02, repeats=5)
              for n in QUICK_PARTICLE_SIZES]
     return rows
 
