@@ -142,7 +142,7 @@ class Propagator:
     def system(self) -> System:
         """A copy of the system at :attr:`time` (synchronised; the run is not affected)."""
         mass, position, velocity = self._state()
-        return System(mass, position, velocity, self.units, self.names, self.integrator.radius)
+        return System._trusted(mass, position, velocity, self.units, self.names, self.integrator.radius.copy())
 
     def _state(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         if self._offgrid is not None:
@@ -154,7 +154,8 @@ class Propagator:
     def energy(self) -> float:
         """Total energy of the system at :attr:`time` (mass * length^2 / time^2)."""
         mass, position, velocity = self._state()
-        return System(mass, position, velocity, self.units, self.names).energy(self._settings["softening"])
+        system = System._trusted(mass, position, velocity, self.units, self.names, self.integrator.radius)
+        return system.energy(self._settings["softening"])
 
     # ------------------------------------------------------------------ stepping
     def _grid_time(self, steps: int) -> float:

@@ -119,6 +119,16 @@ class System:
                     f"bodies {i} ({self.names[i]}) and {j} ({self.names[j]}) share the position "
                     f"{self.position[i].tolist()}; a massive body must not coincide with another body")
 
+    @classmethod
+    def _trusted(cls, mass: np.ndarray, position: np.ndarray, velocity: np.ndarray, units: UnitSystem,
+                 names: list[str], radius: np.ndarray) -> System:
+        """Wrap arrays the engine itself produced (already validated copies): no copy, no checks."""
+        self = cls.__new__(cls)
+        self.units, self.mass, self.position, self.velocity = units, mass, position, velocity
+        self.radius, self.names = radius, list(names)
+        self.n_active = int(np.count_nonzero(mass > 0))
+        return self
+
     # ------------------------------------------------------------------ basics
     @property
     def G(self) -> float:
