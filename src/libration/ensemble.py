@@ -682,7 +682,9 @@ def _resolve_executor(executor: Any, workers: int | None) -> tuple[cf.Executor, 
         raise ValidationError(f"executor must be an Executor, a dask Client, 'processes' or 'sequential', "
                               f"got {executor!r}")
     if not isinstance(executor, cf.Executor) and hasattr(executor, "get_executor"):
-        return executor.get_executor(), False  # a dask.distributed.Client
+        # A dask.distributed.Client.  pure=False: a rerun must run members again, never be
+        # answered from results (or errors) the cluster still remembers under the same key.
+        return executor.get_executor(pure=False), False
     if not hasattr(executor, "submit"):
         raise ValidationError(f"executor must provide submit() (a concurrent.futures.Executor or a dask "
                               f"Client), got {type(executor).__name__}")
@@ -1491,6 +1493,22 @@ def add_cli_arguments(parser) -> None:
 
 
 def _progress_bar(stream) -> Callable[[int, int], None]:
+    try:
+        from tqdm import tqdm
+    except ImportError:
+        tqdm = None
+    if tqdm is not None:
+        bar: dict[str, Any] = {}
+
+        def advance(done: int, total: int) -> None:
+            if "bar" not in bar:
+                bar["bar"] = tqdm(total=total, initial=done, unit="member", file=stream, dynamic_ncols=True)
+            else:
+                bar["bar"].update(done - bar["bar"].n)
+            if done == total:
+                bar["bar"].close()
+        return advance
+
     def show(done: int, total: int) -> None:
         width = 30
         filled = int(width * done / total) if total else width
