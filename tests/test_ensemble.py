@@ -433,3 +433,18 @@ def test_resumed_member_matches_uninterrupted_for_each_method(tmp_path, method, 
             open(os.path.join(interrupted.member_directory(0), "series.csv")) as b:
         assert a.read() == b.read()
     assert_same_output(reference, interrupted, 0, count=None)
+
+
+def test_series_is_thinned_to_a_bounded_length(tmp_path, monkeypatch):
+    import libration.ensemble as module
+
+    monkeypatch.setattr(module, "_SERIES_ROWS", 10)
+    ensemble = small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.45]}, until=7 * TWO_PI,
+                          sample_every=TWO_PI / 20)  # 140 samples
+    table = ensemble.run("sequential")
+    with open(os.path.join(ensemble.member_directory(0), "series.csv")) as fh:
+        rows = fh.read().strip().splitlines()
+    times = [float(row.split(",")[0]) for row in rows[1:]]
+    assert rows[0].startswith("time,inner.semi_major_axis,outer.semi_major_axis,inner.eccentricity")
+    assert 10 <= len(times) <= 12 and times[0] == 0.0 and times[-1] == 7 * TWO_PI
+    assert float(rows[-1].split(",")[2]) == table["outer.final_semi_major_axis"][0]

@@ -73,6 +73,7 @@ _TRACKED_FIELDS = ("max_eccentricity", "semi_major_axis", "eccentricity", "incli
 _TRACKED_COLUMNS = {"max_eccentricity": "max_eccentricity", "semi_major_axis": "final_semi_major_axis",
                     "eccentricity": "final_eccentricity", "inclination": "final_inclination"}
 _MESSAGE_WIDTH = 200
+_SERIES_ROWS = 10000
 
 
 # ============================================================================== small helpers
@@ -287,6 +288,14 @@ class _Tracker:
         self.escape_distance = float(task["escape_distance"]) if task["escape_distance"] is not None else math.nan
         self.max_eccentricity = np.zeros(len(self.tracked))
         self.series: list[list[float]] = []
+        self.last_row: list[float] = []
+        # series.csv keeps at most about _SERIES_ROWS rows (plus the last sample).
+        settings = task["settings"]
+        every = abs(settings["sample_every"])
+        if settings["step"] is not None:  # fixed steps: samples fall on the step grid
+            every = max(1, round(every / abs(settings["step"]))) * abs(settings["step"])
+        samples = abs(settings["until"] - settings["start"]) / every
+        self.series_stride = max(1, math.ceil(samples / _SERIES_ROWS))
         self.stop_reason = ""
         self.angular_momentum0 = np.full(3, np.nan)
         self.output_cursor = 0
@@ -304,7 +313,8 @@ class _Tracker:
                 "angular_momentum0": self.angular_momentum0.copy(), "output_cursor": self.output_cursor,
                 "output_sample": self.output_sample,
                 "max_eccentricity": self.max_eccentricity.copy(),
-                "series": np.array(self.series, dtype=np.float64).reshape(-1, columns)}
+                "series": np.array(self.series, dtype=np.float64).reshape(-1, columns),
+                "last_row": np.array(self.last_row, dtype=np.float64)}
 
     def restore(self, memory: Mapping[str, Any]) -> None:
         for key in ("next_sample", "energy0", "max_energy_error", "min_hill", "first_encounter_time",
@@ -317,6 +327,7 @@ class _Tracker:
         self.output_sample = int(memory["output_sample"])
         self.max_eccentricity = np.array(memory["max_eccentricity"], dtype=np.float64)
         self.series = np.asarray(memory["series"], dtype=np.float64).tolist()
+        self.last_row = np.asarray(memory["last_row"], dtype=np.float64).tolist()
 
     # ---- sampling
     def sample(self, propagator) -> str:
@@ -376,7 +387,9 @@ class _Tracker:
                     self.first_encounter_bodies = f"{self.names[mk[first[0]]]}+{self.names[mk[first[1]]]}"
                     met = met or "encounter"
             row.extend(a_row.tolist() + e_row.tolist() + i_row.tolist())
-        self.series.append(row)
+        self.last_row = row
+        if (self.next_sample - 1) % self.series_stride == 0:
+            self.series.append(row)
         return met
 
 
@@ -540,7 +553,9 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
                                     threads=settings["threads"], events=settings["events"],
                                     time=settings["start"], **settings["options"])
             tracker = _Tracker(task, system)
-            tracker.sample(propagator)
+            met = tracker.sample(propagator)
+            if met in task["stop_on"]:
+                tracker.stop_reason = f"stopped on {met} at time {propagator.time!r}"
             resumed_at = None
             output = _MemberOutput.create(task, propagator, tracker) if task["output_stride"] else None
         start, until, every = task["settings"]["start"], task["settings"]["until"], task["settings"]["sample_every"]
@@ -589,7 +604,9 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
         first_escape = tracker.first_escape_time
         if not math.isnan(events["escape"]) and not events["escape"] >= first_escape:
             first_escape = events["escape"]
-        final = tracker.series[-1]
+        final = tracker.last_row
+        if not tracker.series or tracker.series[-1][0] != final[0]:
+            tracker.series.append(final)
         k = len(tracker.names)
         summary = {
             "index": task["index"], "status": "stopped" if reason else "finished", "message": reason,
@@ -601,7 +618,7 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
             "tracked": {name: {"max_eccentricity": tracker.max_eccentricity[i], "semi_major_axis": final[1 + i],
                                "eccentricity": final[1 + k + i], "inclination": final[1 + 2 * k + i]}
                         for i, name in enumerate(tracker.names)},
-            "samples": len(tracker.series), "events": len(propagator.event_log),
+            "samples": tracker.next_sample, "events": len(propagator.event_log),
             "resumed_at": resumed_at, "wall_seconds": _time.perf_counter() - wall_start,
             "process": f"{socket.gethostname()}:{os.getpid()}",
             "fingerprint": task["fingerprint"],
