@@ -741,9 +741,11 @@ class Ensemble:
         Initial time, time unit (default 0).
     sample_every : float, optional
         Diagnostics (energy, elements, separations) are sampled at ``start + k * sample_every``
-        (time unit; default: 1000 samples over the span).  Sampling never changes the
+        (time unit; default: 1000 samples over the span; with a fixed step, rounded to a
+        whole number of steps so samples fall on the step grid).  Sampling never changes the
         trajectory.  Close encounters are detected at samples: ``sample_every`` should be a
-        small fraction of the shortest orbital period of interest.
+        small fraction of the shortest orbital period of interest (or use ``events=`` for
+        per-step detection in the compiled loop).
     checkpoint_interval : float
         Wall-clock seconds between a member's checkpoints (default 60).  A lost worker costs
         at most this much of one member's work.
@@ -771,6 +773,19 @@ class Ensemble:
         :mod:`libration.io.output`, with elements about ``primary``) every this much time
         (rounded to a whole number of samples) and at its end; needs h5py.  Default: none
         (the sampled ``series.csv`` only).
+
+    Examples
+    --------
+    A grid over the outer planet's orbit, on the local cores, then on a Dask cluster (the
+    same script: members already finished are skipped, interrupted ones resume)::
+
+        scan = lb.Ensemble(system, "scan", until=1e6, method="wisdom-holman", step=20.0,
+                           grid={"c.semi_major_axis": np.linspace(1.3, 1.8, 51),
+                                 "c.eccentricity": np.linspace(0.0, 0.3, 31)},
+                           sample_every=50.0, stop_on=["encounter"])
+        table = scan.run()                       # a process pool, one worker per core
+        table = scan.run(distributed.Client("tcp://scheduler:8786"))
+        scan.plot_map("c.semi_major_axis", "c.eccentricity", "first_encounter_time")
     """
 
     def __init__(self, base: System | Callable[[dict], System], directory: str | os.PathLike, *,
