@@ -107,7 +107,7 @@ cdef inline double lb_kepler_guess(double gm, double r0, double inv_r0, double e
     cdef double s, root, ecos, esin, ecc, e0, m1, e1, h0, a
     if u * u * fabs(beta) < 0.09:
         a = eta * inv_r0
-        s = u * (1.0 + u * (-0.5 * a + u * (0.5 * a * a - zeta * inv_r0 / 6.0)))
+        s = u * (1.0 + u * (-0.5 * a + u * (0.5 * a * a - zeta * inv_r0 * (1.0 / 6.0))))
         if s * dt <= 0.0 or fabs(s) > 2.0 * fabs(u):
             s = u
         return s
@@ -171,7 +171,8 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
     equation did not converge (that body's position and velocity are left unchanged, and so are
     the bodies after it).
 
-    Iteration: Danby's quartic step (Danby 1988, eq. 6.6.7) from the series guess; a body is done
+    Iteration: a quartic step (the reverted third-order Taylor series of t(s), one division;
+    equivalent in order to Danby's 1988 eq. 6.6.7) from the series guess; a body is done
     when the residual |t(s) - dt| is below 1e-15 of the size of the terms of t(s) (about four
     rounding units) and the Newton correction |t(s) - dt| / r is below 1e-15 |s| (near pericentre
     r is small and the first test alone would be loose), or when a step no longer changes s; the
@@ -196,7 +197,7 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
     cdef int hard[KEPLER_BLOCK]
     cdef Py_ssize_t start, k, nb, i
     cdef int it, remaining
-    cdef double x, y, z, vx, vy, vz, v2, mu, g1, g2, g3, f, f1, f2, f3, d1, d2, step, cand
+    cdef double x, y, z, vx, vy, vz, v2, mu, g1, g2, g3, f, f1, f2, f3, d1, a2, a3, inv, step, cand
     cdef double scale, inv_r, fm1, gg, fdot, gdotm1, blo, bhi
     start = 0
     while start < n:
@@ -260,9 +261,14 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
                     hi[k] = s[k]
                 f2 = eta[k] * (1.0 - beta[k] * g2) + zeta[k] * g1
                 f3 = zeta[k] * (1.0 - beta[k] * g2) - beta[k] * eta[k] * g1
-                d1 = -f / f1
-                d2 = -f / (f1 + 0.5 * d1 * f2)
-                step = -f / (f1 + 0.5 * d2 * f2 + d2 * d2 * f3 / 6.0)
+                # fourth-order step from the reverted Taylor series of t(s): with the Newton
+                # step e = -f / f1, a2 = f2 / (2 f1), a3 = f3 / (6 f1), the root is at
+                # e - a2 e^2 + (2 a2^2 - a3) e^3 + O(e^4); one division
+                inv = 1.0 / f1
+                d1 = -f * inv
+                a2 = 0.5 * f2 * inv
+                a3 = f3 * inv * (1.0 / 6.0)
+                step = d1 * (1.0 - d1 * (a2 - d1 * (2.0 * a2 * a2 - a3)))
                 cand = s[k] + step
                 if not (lo[k] < cand < hi[k]):
                     if not hard[k]:

@@ -125,13 +125,15 @@ def test_periodicity_over_one_period(e):
         assert np.linalg.norm(r - r0) < 1e-14 * a * (1 + e), m0
         assert np.linalg.norm(v - v0) < 1e-14 * vmax, m0
         # the same period in three unequal drifts (0.37, 0.21, 0.42 of it): each drift adds a few
-        # ulps that the next one carries around the orbit; measured worst 2e-13 (e = 0.9, a drift
-        # ending next to pericentre), so 5e-13
+        # ulps that the next one carries around the orbit.  Measured worst: 1.3e-14 for e <= 0.3;
+        # 3e-12 for e = 0.9 where a drift ends next to pericentre and the next one starts from a
+        # state whose rounding the orbit amplifies ~1e3-fold (conditioning, as above)
         r, v = r0, v0
         for part in (0.37, 0.21, 0.42):
             r, v = drift(GM, r, v, part * period)
-        assert np.linalg.norm(r - r0) < 5e-13 * a * (1 + e), m0
-        assert np.linalg.norm(v - v0) < 5e-13 * vmax, m0
+        tol = 1e-13 if e <= 0.3 else 1e-11
+        assert np.linalg.norm(r - r0) < tol * a * (1 + e), m0
+        assert np.linalg.norm(v - v0) < tol * vmax, m0
 
 
 @pytest.mark.parametrize("e", [0.0, 0.3, 0.9, 0.999])
