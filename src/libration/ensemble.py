@@ -607,6 +607,7 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
         final = tracker.last_row
         if not tracker.series or tracker.series[-1][0] != final[0]:
             tracker.series.append(final)
+        _write_series(os.path.join(directory, "series.csv"), tracker)
         k = len(tracker.names)
         summary = {
             "index": task["index"], "status": "stopped" if reason else "finished", "message": reason,
@@ -623,7 +624,6 @@ def run_member(task: Mapping[str, Any]) -> dict[str, Any]:
             "process": f"{socket.gethostname()}:{os.getpid()}",
             "fingerprint": task["fingerprint"],
         }
-        _write_series(os.path.join(directory, "series.csv"), tracker)
         _write_json_atomic(os.path.join(directory, "summary.json"), summary)
         failure_path = os.path.join(directory, "failure.json")
         if os.path.exists(failure_path):
@@ -1103,7 +1103,8 @@ class Ensemble:
         path = os.fspath(path) if path is not None else os.path.join(self.directory, "summary.h5")
         table = self.results()
         # HDF5 has no fixed-width unicode: store the strings as UTF-8 bytes.
-        dtype = [(name, "S" + str(4 * table.dtype[name].itemsize // 4) if table.dtype[name].kind == "U"
+        # (a U<k> field holds 4 k bytes: room for k characters of up to 4 UTF-8 bytes each).
+        dtype = [(name, f"S{table.dtype[name].itemsize}" if table.dtype[name].kind == "U"
                   else table.dtype[name]) for name in table.dtype.names]
         converted = np.zeros(table.shape, dtype=dtype)
         for name in table.dtype.names:
