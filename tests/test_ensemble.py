@@ -249,6 +249,14 @@ def test_results_files_and_reopening(tmp_path):
     png = ensemble.plot_map("outer.semi_major_axis", "outer.eccentricity", value="outer.max_eccentricity")
     with open(png, "rb") as fh:
         assert fh.read(8) == b"\x89PNG\r\n\x1a\n"
+    # What `libration plot` is given: the directory, its manifest or its summary.csv.
+    from libration.ensemble import plot_cli
+
+    drawn = plot_cli(os.path.join(ensemble.directory, "summary.csv"), tmp_path / "map.png")
+    assert drawn == str(tmp_path / "map.png") and os.path.getsize(drawn) > 1000
+    assert plot_cli(tmp_path / "nothing-here") is None
+    with pytest.raises(lb.ValidationError, match="not a column"):
+        ensemble.plot_map("outer.semi_major_axis", None, value="no_such_column")
 
 
 def test_apply_parameters_sets_elements_mass_and_coordinates():
