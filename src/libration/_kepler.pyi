@@ -1,0 +1,9 @@
+"""Type stubs for the universal-variable Kepler drift (ext/kepler.pyx over ext/kepler.pxd)."""
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+def stumpff(x: float) -> tuple[float, float, float, float]: ...
+def _drift(gm: NDArray[np.float64], gm_stride: int, position: NDArray[np.float64],
+           velocity: NDArray[np.float64], dt: float) -> int: ...
+def drift(gm: float | ArrayLike, position: ArrayLike, velocity: ArrayLike,
+          dt: float) -> tuple[NDArray[np.float64], NDArray[np.float64]]: ...
