@@ -456,3 +456,24 @@ def test_series_is_thinned_to_a_bounded_length(tmp_path, monkeypatch):
     assert rows[0].startswith("time,inner.semi_major_axis,outer.semi_major_axis,inner.eccentricity")
     assert 10 <= len(times) <= 12 and times[0] == 0.0 and times[-1] == 7 * TWO_PI
     assert float(rows[-1].split(",")[2]) == table["outer.final_semi_major_axis"][0]
+
+
+def test_event_columns_from_the_propagators_event_log(tmp_path):
+    # Planets with large radii (invented) on close orbits: one member collides (and stops,
+    # as asked), the others do not; the encounter events are recorded along the way.
+    base = lb.System.from_elements(1.0, [4e-5, 2e-5], [1.0, 1.05], [0.0, 0.0], [0.0, 0.0], [0.0, 0.0],
+                                   [0.0, 0.0], [0.0, 0.3], units="nbody", names=["star", "inner", "outer"],
+                                   radius=[0.005, 0.01, 0.01])
+    ensemble = Ensemble(base, tmp_path / "e", until=50 * TWO_PI, step=TWO_PI / 200, sample_every=TWO_PI / 10,
+                        grid={"outer.semi_major_axis": [1.05, 1.5]},
+                        events={"collision": "stop", "encounter": "record", "encounter_hill": 1.0})
+    table = ensemble.run("sequential")
+    collided, quiet = table
+    assert collided["status"] == "stopped" and "collision" in collided["message"]
+    # The located collision time lies within the step at whose end the member stopped.
+    assert collided["first_encounter_time"] < collided["first_collision_time"] <= collided["time"]
+    assert collided["time"] - collided["first_collision_time"] < TWO_PI / 200
+    final = ensemble.final_system(0)
+    assert np.linalg.norm(final.position[1] - final.position[2]) < 0.02  # the surfaces overlap
+    assert quiet["status"] == "finished" and math.isnan(quiet["first_collision_time"])
+    assert math.isnan(quiet["first_encounter_time"]) and quiet["min_separation_hill"] > 5
