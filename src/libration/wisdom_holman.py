@@ -255,6 +255,27 @@ class WisdomHolman(Integrator):
         velocity += self._cm_velocity
         return self.mass.copy(), position, velocity
 
+    def finish_on_copy(self, dt: float):
+        """State after a partial step ``dt``; the integrator itself is unchanged.
+
+        Without a corrector: the base behaviour (a clone takes one step of ``dt``).  With one,
+        the kernel state is C_h^-1 of the true state for the run's step h, and a step of another
+        size would leave that frame (measured: off-grid energy errors ~1000x the on-grid ones
+        with corrector=5); instead the corrected state x is advanced by the corrected map of
+        step ``dt`` itself, C_dt Phi_dt C_dt^-1 (x), which keeps the corrector's accuracy."""
+        if not self.options["corrector"]:
+            return super().finish_on_copy(dt)
+        mass, position, velocity = self.state()
+        other = WisdomHolman(mass, position, velocity, self.n_active, self.G, step=float(dt),
+                             threads=self.threads, radius=self.radius,
+                             coordinates=self.options["coordinates"],
+                             corrector=self.options["corrector"])
+        report = other.take_steps(1)
+        if report.status != STATUS_OK:
+            from .methods import raise_for_status
+            raise_for_status(report)
+        return other.state()
+
     def memory(self) -> dict[str, Any]:
         memory = super().memory()
         memory.update({"wh_q": self._q.copy(), "wh_p": self._p.copy(), "wh_pending": self._pending,
