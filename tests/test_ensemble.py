@@ -477,3 +477,14 @@ def test_event_columns_from_the_propagators_event_log(tmp_path):
     assert np.linalg.norm(final.position[1] - final.position[2]) < 0.02  # the surfaces overlap
     assert quiet["status"] == "finished" and math.isnan(quiet["first_collision_time"])
     assert math.isnan(quiet["first_encounter_time"]) and quiet["min_separation_hill"] > 5
+
+
+def test_one_run_at_a_time_per_directory(tmp_path):
+    from libration.ensemble import _DirectoryLock
+
+    ensemble = small_grid(tmp_path / "e", grid={"outer.semi_major_axis": [1.45]}, until=TWO_PI)
+    ensemble._prepare_directory()
+    with _DirectoryLock(os.path.join(ensemble.directory, "run.lock")):
+        with pytest.raises(lb.ValidationError, match="is being run by process"):
+            ensemble.run("sequential")
+    assert set(ensemble.run("sequential")["status"]) == {"finished"}

@@ -708,6 +708,43 @@ def _resolve_executor(executor: Any, workers: int | None) -> tuple[cf.Executor, 
     return executor, False
 
 
+class _DirectoryLock:
+    """An exclusive advisory lock on ``path`` while an ensemble runs (POSIX ``flock``), so two
+    runs of one directory never write the same members; a no-op where ``flock`` is missing."""
+
+    def __init__(self, path: str) -> None:
+        self.path = path
+        self.handle = None
+
+    def __enter__(self) -> _DirectoryLock:
+        try:
+            import fcntl
+        except ImportError:  # pragma: no cover - not POSIX
+            return self
+        self.handle = open(self.path, "a+", encoding="utf-8")
+        try:
+            fcntl.flock(self.handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            self.handle.seek(0)
+            holder = self.handle.read().strip() or "another process"
+            self.handle.close()
+            self.handle = None
+            raise ValidationError(f"{os.path.dirname(self.path)} is being run by {holder}; wait for it "
+                                  "to end (or stop it) before running this ensemble again") from None
+        except OSError:  # a file system without locks (some network mounts): run unlocked
+            return self
+        self.handle.seek(0)
+        self.handle.truncate()
+        self.handle.write(f"process {os.getpid()} on {socket.gethostname()}\n")
+        self.handle.flush()
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        if self.handle is not None:
+            self.handle.close()  # closing releases the lock
+            self.handle = None
+
+
 # ===================================================================================== ensemble
 class Ensemble:
     """Many runs of one system with varied parameters, durable and resumable.
@@ -994,6 +1031,10 @@ class Ensemble:
             again to resume them from their checkpoints.
         """
         self._prepare_directory()
+        with _DirectoryLock(os.path.join(self.directory, "run.lock")):
+            return self._run(executor, workers, retry_failed, progress)
+
+    def _run(self, executor, workers, retry_failed, progress) -> np.ndarray:
         records = self.member_records()
         todo_status = {"pending", "interrupted"} | ({"failed"} if retry_failed else set())
         tasks = [task for task, record in zip(self.tasks(), records) if record["status"] in todo_status]
@@ -1039,7 +1080,7 @@ class Ensemble:
             first = lost[0][1]
             warnings.warn(f"{len(lost)} member(s) were lost with their worker (first: {first}); they are "
                           "interrupted and resume from their checkpoints when the ensemble is run again",
-                          RuntimeWarning, stacklevel=2)
+                          RuntimeWarning, stacklevel=3)
         return table
 
     # ---------------------------------------------------------------- results
