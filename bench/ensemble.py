@@ -130,7 +130,10 @@ def main() -> None:
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
     baseline = float(np.mean([run["wall_seconds"] for run in runs if run["workers"] == 1]))
+    baseline_member = float(np.mean([run["mean_member_seconds"] for run in runs if run["workers"] == 1]))
     for run in runs:
+        # > 1: members computed slower than alone (cores shared with other work, memory, clocks).
+        run["member_slowdown"] = run["mean_member_seconds"] / baseline_member
         run["parallel_efficiency"] = baseline / (run["workers"] * run["wall_seconds"])
         # Share of the workers' time spent inside members (1 - executor overhead share).
         run["compute_fraction"] = run["member_compute_seconds"] / (run["workers"] * run["wall_seconds"])
@@ -146,7 +149,7 @@ def main() -> None:
     for run in runs:
         print(f"{run['executor']:24s} wall {run['wall_seconds']:7.2f} s  efficiency {run['parallel_efficiency']:.3f}"
               f"  overhead/member {1e3 * run['overhead_per_member_seconds']:7.1f} ms"
-              f"  compute fraction {run['compute_fraction']:.3f}")
+              f"  compute fraction {run['compute_fraction']:.3f}  member slowdown {run['member_slowdown']:.2f}")
     print(f"written {args.output}")
 
 
