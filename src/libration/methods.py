@@ -250,4 +250,5 @@ class Yoshida8(Composition):
 
 
 # Other method families register themselves on import (kept at the bottom: they subclass Integrator).
+from . import bulirsch_stoer  # noqa: E402,F401  (registers bulirsch-stoer)
 from . import wisdom_holman  # noqa: E402,F401  (registers wisdom-holman)
