@@ -17,7 +17,9 @@
  * once, when it starts: the struct keeps a short list of the conditions currently
  * holding since their report, and they are suppressed until they stop holding (for
  * encounters with a 10% hysteresis: the pair must move beyond 1.1 times the encounter
- * distance, so a pair grazing the boundary does not chatter).  The list lives in the
+ * distance, so a pair grazing the boundary does not chatter; an escape ends only when the
+ * body comes back inside the escape distance, since the energy of a body in an escaping
+ * binary swings in sign along the binary's orbit).  The list lives in the
  * config buffer itself, so every integrator (and every clone made with deepcopy) carries
  * its own; the buffer passed in must therefore be writable memory (the integrators pass
  * a numpy array), although the signature keeps `const` for the callers already written.
@@ -102,7 +104,7 @@ static void lb_event_barycentre(const double *position, const double *velocity, 
 }
 
 /* Escape test for body i: beyond `limit` from the barycentre and unbound from the rest.
- * `limit` 0 tests only the energy (used to decide when a tracked escape ends). */
+ */
 static int lb_escape_holds(const double *position, const double *velocity, const double *mass,
                            ptrdiff_t i, ptrdiff_t n_active, double G, double limit, double total,
                            const double *r_cm, const double *v_cm)
@@ -147,8 +149,11 @@ static void lb_event_untrack(lb_event_config *c, const double *position, const d
                     lb_event_barycentre(position, velocity, mass, n_active, &total, r_cm, v_cm);
                     have_cm = 1;
                 }
-                /* an escaper stays tracked while it is unbound (it may not come back) */
-                holds = lb_escape_holds(position, velocity, mass, i, n_active, G, 0.0, total, r_cm, v_cm);
+                /* an escaper stays tracked while it stays beyond the escape distance (its
+                 * energy relative to the rest may swing in sign when it is part of a binary) */
+                double dx = position[3 * i] - r_cm[0], dy = position[3 * i + 1] - r_cm[1];
+                double dz = position[3 * i + 2] - r_cm[2];
+                holds = sqrt(dx * dx + dy * dy + dz * dz) > c->escape_distance;
             }
         }
         if (holds) {

@@ -121,6 +121,8 @@ class Propagator:
         self._steps = 0
         self._time = self.t0
         self._offgrid: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        if cls.adaptive:
+            self.integrator.time = self.t0  # adaptive methods keep their own clock
 
     # ---------------------------------------------------------------- properties
     @property
