@@ -644,31 +644,7 @@ def _element_problem(drawn: dict[str, np.ndarray]) -> tuple[int, str] | None:
 
 def _relative_state(mu: float, a, e, inc, node, peri, mean) -> tuple[np.ndarray, np.ndarray]:
     """Position and velocity relative to the primary of two-body orbits (angles in radians)."""
-    a, e, inc, node, peri, mean = (np.asarray(x, dtype=np.float64) for x in (a, e, inc, node, peri, mean))
-    elliptic = e < 1
-    # Kepler's equation, elliptic E - e sin E = M; hyperbolic e sinh H - H = M (Newton).
-    anomaly = np.where(elliptic, np.mod(mean, 2 * np.pi), np.arcsinh(mean / np.maximum(e, 1e-300)))
-    if np.any(elliptic):
-        anomaly = np.where(elliptic & (e > 0.8), np.pi, anomaly)
-    for _ in range(60):
-        f = np.where(elliptic, anomaly - e * np.sin(anomaly) - np.mod(mean, 2 * np.pi),
-                     e * np.sinh(anomaly) - anomaly - mean)
-        fp = np.where(elliptic, 1 - e * np.cos(anomaly), e * np.cosh(anomaly) - 1)
-        delta = f / fp
-        anomaly = anomaly - delta
-        if np.all(np.abs(delta) <= 4e-16 * np.maximum(1.0, np.abs(anomaly))):
-            break
-    with np.errstate(invalid="ignore"):
-        root = np.sqrt(np.abs(1 - e * e))
-        x = np.where(elliptic, a * (np.cos(anomaly) - e), a * (np.cosh(anomaly) - e))
-        y = np.where(elliptic, a * root * np.sin(anomaly), -a * root * np.sinh(anomaly))
-        rate = np.sqrt(mu / np.abs(a) ** 3) / np.where(elliptic, 1 - e * np.cos(anomaly),
-                                                        e * np.cosh(anomaly) - 1)
-        vx = np.where(elliptic, -a * np.sin(anomaly), a * np.sinh(anomaly)) * rate
-        vy = np.where(elliptic, a * root * np.cos(anomaly), -a * root * np.cosh(anomaly)) * rate
-    cn, sn, ci, si, cw, sw = np.cos(node), np.sin(node), np.cos(inc), np.sin(inc), np.cos(peri), np.sin(peri)
-    px = np.stack([cn * cw - sn * sw * ci, sn * cw + cn * sw * ci, sw * si], axis=-1)
-    qx = np.stack([-cn * sw - sn * cw * ci, -sn * sw + cn * cw * ci, cw * si], axis=-1)
-    position = x[:, None] * px + y[:, None] * qx
-    velocity = vx[:, None] * px + vy[:, None] * qx
-    return position, velocity
+    from .elements import elements_to_cartesian
+
+    position, velocity = elements_to_cartesian(mu, a, e, inc, node, peri, mean)
+    return np.atleast_2d(position), np.atleast_2d(velocity)

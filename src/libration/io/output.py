@@ -275,10 +275,11 @@ def _open_for_reading(path: str):
         return h5py.File(path, "r", libver="latest")
     except OSError as exc:
         first = str(exc)
-    try:  # single-writer/multiple-reader: readable while (or after) a writer had it open
-        return h5py.File(path, "r", libver="latest", swmr=True)
-    except OSError:
-        pass
+    if "open for write" in first or "consistency flags" in first:
+        try:  # single-writer/multiple-reader: readable while (or after) a writer had it open
+            return h5py.File(path, "r", libver="latest", swmr=True)
+        except OSError:
+            pass
     with open(path, "rb") as fh:
         magic = fh.read(8)
     if magic == b"\x89LBRCKP\n":

@@ -1,0 +1,204 @@
+"""HDF5 output: the documented schema, read back with plain h5py and with lb.open_output."""
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import textwrap
+
+import h5py
+import numpy as np
+import pytest
+
+import libration as lb
+from libration.exceptions import FileFormatError, ValidationError
+from libration.io import open_output
+from libration.io.output import ELEMENT_NAMES, OutputWriter
+
+
+def _system(n_test: int = 6) -> lb.System:
+    rng = np.random.default_rng(11)
+    mass = np.array([1.0, 1e-3, 3e-4] + [0.0] * n_test)
+    radius_orbit = np.concatenate([[0.0, 1.0, 1.6], rng.uniform(2.0, 3.0, n_test)])
+    phase = rng.uniform(0, 2 * np.pi, mass.size)
+    pos = np.stack([radius_orbit * np.cos(phase), radius_orbit * np.sin(phase), np.zeros(mass.size)], axis=1)
+    speed = np.where(radius_orbit > 0, 1.0 / np.sqrt(np.where(radius_orbit > 0, radius_orbit, 1.0)), 0.0)
+    vel = np.stack([-speed * np.sin(phase), speed * np.cos(phase), 0.01 * rng.normal(size=mass.size)], axis=1)
+    return lb.System(mass, pos, vel, names=["star", "p1", "p2"] + [f"tp{i}" for i in range(n_test)]).barycentric()
+
+
+def test_schema_with_plain_h5py_and_round_trip(tmp_path):
+    system = _system()
+    p = lb.Propagator(system, "leapfrog", step=0.01)
+    path = tmp_path / "out.h5"
+    result = p.run(2.0, output=path, every=0.25, elements=True, scenario_text="# scenario text ✓\n")
+    assert result.status == "done" and result.snapshots == 9
+    with h5py.File(path, "r") as f:  # any HDF5 reader sees our documented layout
+        assert f.attrs["format"] == "libration-output" and f.attrs["format_version"] == 1
+        assert f.attrs["units"] == "nbody" and f.attrs["G"] == 1.0 and f.attrs["method"] == "leapfrog"
+        assert f.attrs["step"] == 0.01 and f.attrs["every"] == 0.25 and bool(f.attrs["complete"])
+        assert json.loads(f.attrs["options"]) == p.options
+        assert f["scenario"][()].decode() == "# scenario text ✓\n"
+        assert [x.decode() for x in f["bodies/names"][()]] == system.names
+        k, n = 9, system.n
+        assert f["snapshots/time"].shape == (k,) and f["snapshots/steps"].dtype == np.int64
+        assert f["snapshots/position"].shape == (k, n, 3) and f["snapshots/velocity"].shape == (k, n, 3)
+        assert f["snapshots/mass"].shape == (k, n)
+        assert f["diagnostics/energy"].shape == (k,) and f["diagnostics/angular_momentum"].shape == (k, 3)
+        for name in ELEMENT_NAMES:
+            assert f[f"elements/{name}"].shape == (k, n)
+        assert f["elements"].attrs["primary"] == "star"
+        assert json.loads(f["events/log"][()]) == []
+        np.testing.assert_array_equal(f["snapshots/time"][()], 0.25 * np.arange(9))
+    out = open_output(path)
+    assert len(out) == 9 and out.complete and out.units == "nbody" and out.G == 1.0
+    assert out.names == system.names and out.scenario.startswith("# scenario")
+    # Every stored field matches the propagator at the same time.
+    check = lb.Propagator(system, "leapfrog", step=0.01)
+    e0 = system.energy()
+    l0 = system.angular_momentum()
+    for i, t in enumerate(out.time):
+        check.advance(t)
+        s = check.system
+        assert out.steps[i] == check.steps
+        np.testing.assert_array_equal(out.position[i], s.position)
+        np.testing.assert_array_equal(out.velocity[i], s.velocity)
+        np.testing.assert_array_equal(out.mass[i], s.mass)
+        assert out.energy[i] == s.energy()
+        assert out.energy_error[i] == (s.energy() - e0) / abs(e0)
+        np.testing.assert_array_equal(out.angular_momentum[i], s.angular_momentum())
+        assert out.angular_momentum_error[i] == np.linalg.norm(s.angular_momentum() - l0) / np.linalg.norm(l0)
+    # Elements: star has none; a planet's semi-major axis is close to its orbit radius.
+    assert np.isnan(out.elements["semi_major_axis"][:, 0]).all()
+    assert abs(out.elements["semi_major_axis"][0, 1] - 1.0) < 0.05
+    part = open_output(path, snapshots=slice(2, 8, 3))
+    np.testing.assert_array_equal(part.time, out.time[2:8:3])
+    np.testing.assert_array_equal(part.position, out.position[2:8:3])
+
+
+def test_final_snapshot_off_the_grid_and_backward(tmp_path):
+    system = _system(2)
+    p = lb.Propagator(system, "leapfrog", step=-0.01)
+    p.run(-1.1, output=tmp_path / "b.h5", every=0.5)
+    out = open_output(tmp_path / "b.h5")
+    np.testing.assert_array_equal(out.time, [0.0, -0.5, -1.0, -1.1])
+
+
+def test_memory_bounded_buffer_flushes_in_chunks(tmp_path):
+    writer = OutputWriter(str(tmp_path / "c.h5"), ["a", "b"], np.zeros(2), {"units": "nbody"})
+    assert 1 <= writer.capacity <= 4096
+    row = {"snapshots/time": 0.0, "snapshots/steps": 0, "snapshots/mass": [1.0, 0.0],
+           "snapshots/position": np.zeros((2, 3)), "snapshots/velocity": np.zeros((2, 3)),
+           "diagnostics/energy": -1.0, "diagnostics/energy_error": 0.0,
+           "diagnostics/angular_momentum": np.zeros(3), "diagnostics/angular_momentum_error": 0.0}
+    for i in range(writer.capacity + 3):
+        row["snapshots/time"] = float(i)
+        writer.append(row)
+    assert writer.written == writer.capacity and writer.count == writer.capacity + 3
+    writer.close()
+    out = open_output(tmp_path / "c.h5")
+    np.testing.assert_array_equal(out.time, np.arange(writer.capacity + 3.0))
+
+
+def test_bodies_that_disappear_are_nan_in_their_column(tmp_path):
+    writer = OutputWriter(str(tmp_path / "d.h5"), ["a", "b", "c"], np.zeros(3), {})
+    row = {"snapshots/time": 1.0, "snapshots/steps": 1, "snapshots/mass": [1.0, 3.0],
+           "snapshots/position": np.ones((2, 3)), "snapshots/velocity": np.ones((2, 3)),
+           "diagnostics/energy": -1.0, "diagnostics/energy_error": 0.0,
+           "diagnostics/angular_momentum": np.zeros(3), "diagnostics/angular_momentum_error": 0.0}
+    writer.append(row, names=["a", "c"])
+    writer.close()
+    out = open_output(tmp_path / "d.h5")
+    assert out.mass[0, 0] == 1.0 and np.isnan(out.mass[0, 1]) and out.mass[0, 2] == 3.0
+    assert np.isnan(out.position[0, 1]).all()
+
+
+def test_reopen_truncates_to_the_cursor(tmp_path):
+    system = _system(2)
+    path = tmp_path / "e.h5"
+    lb.Propagator(system, "leapfrog", step=0.01).run(1.0, output=path, every=0.1)
+    assert len(open_output(path)) == 11
+    writer = OutputWriter.reopen(str(path), 4)
+    writer.close()
+    out = open_output(path)
+    np.testing.assert_array_equal(out.time, 0.1 * np.arange(4))
+    with pytest.raises(FileFormatError, match="holds 4 snapshots but the checkpoint expects at least 9"):
+        OutputWriter.reopen(str(path), 9)
+
+
+def test_file_of_a_killed_writer_is_readable(tmp_path):
+    path = tmp_path / "killed.h5"
+    script = textwrap.dedent(f"""
+        import os, signal, numpy as np
+        from libration.io.output import OutputWriter
+        w = OutputWriter({str(path)!r}, ["a"], np.zeros(1), {{}})
+        row = {{"snapshots/time": 0.0, "snapshots/steps": 0, "snapshots/mass": [1.0],
+               "snapshots/position": np.zeros((1, 3)), "snapshots/velocity": np.zeros((1, 3)),
+               "diagnostics/energy": -1.0, "diagnostics/energy_error": 0.0,
+               "diagnostics/angular_momentum": np.zeros(3), "diagnostics/angular_momentum_error": 0.0}}
+        for i in range(5):
+            row["snapshots/time"] = float(i)
+            w.append(row)
+        w.flush()
+        w.append(row)
+        os.kill(os.getpid(), signal.SIGKILL)
+    """)
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True)
+    assert proc.returncode == -9, proc.stderr.decode()
+    with pytest.raises(OSError):  # plain HDF5 refuses: the writer never closed it
+        h5py.File(path, "r")
+    out = open_output(path)
+    assert not out.complete
+    np.testing.assert_array_equal(out.time, np.arange(5.0))
+    writer = OutputWriter.reopen(str(path), 3)  # and a resume repairs it
+    writer.close()
+    with h5py.File(path, "r") as f:
+        assert f["snapshots/time"].shape == (3,)
+
+
+def test_bad_output_files_are_refused(tmp_path):
+    with pytest.raises(FileFormatError, match="does not exist"):
+        open_output(tmp_path / "none.h5")
+    text = tmp_path / "text.h5"
+    text.write_text("not hdf5")
+    with pytest.raises(FileFormatError, match="not an HDF5 file"):
+        open_output(text)
+    foreign = tmp_path / "foreign.h5"
+    with h5py.File(foreign, "w") as f:
+        f["x"] = 1
+    with pytest.raises(FileFormatError, match="not a libration output file"):
+        open_output(foreign)
+    good = tmp_path / "good.h5"
+    lb.Propagator(_system(1), "leapfrog", step=0.01).run(0.1, output=good, every=0.05)
+    newer = tmp_path / "newer.h5"
+    newer.write_bytes(good.read_bytes())
+    with h5py.File(newer, "r+") as f:
+        f.attrs["format_version"] = 99
+    with pytest.raises(FileFormatError, match="newer libration.*upgrade"):
+        open_output(newer)
+    truncated = tmp_path / "truncated.h5"
+    truncated.write_bytes(good.read_bytes()[:1500])
+    with pytest.raises(FileFormatError, match="damaged or truncated"):
+        open_output(truncated)
+    ckpt = tmp_path / "x.ckpt"
+    lb.Propagator(_system(1), "leapfrog", step=0.01).save(ckpt)
+    with pytest.raises(FileFormatError, match="is a libration checkpoint"):
+        open_output(ckpt)
+
+
+def test_run_argument_errors(tmp_path):
+    p = lb.Propagator(_system(1), "leapfrog", step=0.01)
+    with pytest.raises(ValidationError, match="every= .* required"):
+        p.run(1.0, output=tmp_path / "x.h5")
+    with pytest.raises(ValidationError, match="every must be a finite number > 0"):
+        p.run(1.0, output=tmp_path / "x.h5", every=0.0)
+    with pytest.raises(ValidationError, match="lies behind"):
+        p.run(-1.0)
+    with pytest.raises(ValidationError, match="checkpoint_steps must be an integer >= 1"):
+        p.run(1.0, checkpoint=tmp_path / "x.ckpt", checkpoint_steps=0)
+    with pytest.raises(ValidationError, match="different files"):
+        p.run(1.0, output=tmp_path / "x", every=0.1, checkpoint=tmp_path / "x")
+    with pytest.raises(ValidationError, match="elements_primary must name a body"):
+        p.run(1.0, output=tmp_path / "x.h5", every=0.1, elements=True, elements_primary="nobody")
+    assert p.time == 0.0 and not os.path.exists(tmp_path / "x.h5")
