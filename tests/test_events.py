@@ -222,3 +222,21 @@ def test_escape_remove_drops_the_body_and_logs_its_state():
         crossing = np.linalg.norm(entry["state"]["position"][0])
         assert abs(crossing - 5.0) < (1e-9 if method == "bulirsch-stoer" else 1e-4)
         assert p.time == 4.0
+
+
+def test_checkpoint_continues_bit_for_bit_with_the_event_log(tmp_path):
+    # the Pythagorean start (Szebehely & Peters 1967) with small radii: contacts get recorded
+    s = lb.System([3.0, 4.0, 5.0], [[1, 3, 0], [-2, -1, 0], [1, -1, 0]], np.zeros((3, 3)),
+                  radius=[0.005] * 3)
+    events = {"collision": "record", "escape": "record", "escape_distance": 10.0}
+    straight = lb.Propagator(s, "bulirsch-stoer", tolerance=1e-13, events=events)
+    straight.advance(30.0)
+    first = lb.Propagator(s, "bulirsch-stoer", tolerance=1e-13, events=events)
+    first.advance(15.83)       # inside the closest approach: the contact is in progress
+    first.save(tmp_path / "run.ckpt")
+    resumed = lb.Propagator.load(tmp_path / "run.ckpt")
+    resumed.advance(30.0)
+    np.testing.assert_array_equal(resumed.system.position, straight.system.position)
+    assert [(e["kind"], e["time"]) for e in resumed.event_log] == \
+        [(e["kind"], e["time"]) for e in straight.event_log]
+    assert any(e["kind"] == "collision" for e in straight.event_log)
