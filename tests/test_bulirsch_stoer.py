@@ -177,5 +177,13 @@ def test_state_at_outside_the_last_step_raises():
     start, end = p.integrator.last_step
     with pytest.raises(ValidationError):
         p.integrator.state_at(start - 1.0)
-    assert p.integrator.advance_to(0.5).status == STATUS_OK  # already past: no step
+    assert p.integrator.advance_to(start).status == STATUS_OK  # already past: no step
     assert p.integrator.last_step == (start, end)
+
+
+def test_backward_requests_raise():
+    p = lb.Propagator(planetary(), "bulirsch-stoer", tolerance=1e-10)
+    p.advance(3.0)
+    start, _ = p.integrator.last_step
+    with pytest.raises(ValidationError, match="forward only"):
+        p.advance(start - 0.5)

@@ -172,9 +172,10 @@ class BulirschStoer(Integrator):
         t = float(t)
         if not math.isfinite(t):
             raise ValidationError(f"t must be finite, got {t!r}")
-        if t < self.time and self.control[_ACCEPTED] == 0:
-            raise ValidationError(f"t = {t!r} lies before the start time {self.time!r}; "
-                                  f"bulirsch-stoer integrates forward only")
+        start = float(self.control[_PREV_TIME])
+        if t < start:
+            raise ValidationError(f"t = {t!r} lies before {start!r} (the start of the last accepted "
+                                  f"step); bulirsch-stoer integrates forward only")
         events = self.event_config if self.events is not None else None
         status, done, kind, body_i, body_j = self._run(
             t, self.control, self.position, self.velocity, self.acceleration, self.carry, exact=False,
