@@ -279,7 +279,7 @@ cdef int bs_step(bs_problem* p, const double* x_start, const double* cx, const d
     """
     cdef double H = H_io[0], err = 0.0, errold = 1e300, limit
     # the smallest step: the option, or a few units of roundoff of the time itself
-    cdef double hmin = max(p.hmin, 16.0 * DBL_EPSILON * fabs(t))
+    cdef double hmin = max(max(p.hmin, 16.0 * DBL_EPSILON * fabs(t)), 1e-300)
     cdef int k = k_io[0], kc = 0, j, r, kopt
     cdef int reject = 0, outcome, diverged
     cdef const double* x0 = p.xs

@@ -240,3 +240,13 @@ def test_checkpoint_continues_bit_for_bit_with_the_event_log(tmp_path):
     assert [(e["kind"], e["time"]) for e in resumed.event_log] == \
         [(e["kind"], e["time"]) for e in straight.event_log]
     assert any(e["kind"] == "collision" for e in straight.event_log)
+
+
+@pytest.mark.parametrize("method", ["bulirsch-stoer", "yoshida4"])
+def test_collision_remove_drops_the_lighter_body(method):
+    s = lb.System([0.7, 0.3], [[-0.5, 0, 0], [0.5, 0, 0]], np.zeros((2, 3)), radius=[0.05, 0.05],
+                  names=["big", "small"])
+    p = lb.Propagator(s, method, events={"collision": "remove"}, **kw(method))
+    p.advance(1.5)
+    assert p.names == ["big"] and p.event_log[0]["removed"] == "small"
+    assert p.system.mass.tolist() == [0.7]
