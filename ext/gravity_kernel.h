@@ -292,6 +292,24 @@ LB_DEFINE_TILES(lb_gravity_tiles_baseline, , double, 1, 8, LB_S_SET1, LB_S_LOADU
                 LB_S_LOAD3, LB_S_STORE3, LB_S_ADD, LB_S_SUB, LB_S_MUL, LB_S_DIV, LB_S_SQRT)
 #endif
 
+/* Fork safety.  GNU OpenMP's thread pool does not survive fork(): a child process
+ * that starts a parallel region after its parent ran one hangs (Python's
+ * multiprocessing forks by default on Linux, e.g. process pools for ensembles).  So
+ * in a forked child the kernel never enters OpenMP and runs on one thread; children
+ * started by spawn or forkserver are fresh processes and keep their threads.  Every
+ * compiled module that includes this header registers its own handler when it is
+ * loaded, so the rule holds whichever module ran OpenMP in the parent. */
+static int lb_gravity_forked = 0;
+#if defined(_OPENMP) && (defined(__GNUC__) || defined(__clang__)) \
+    && (defined(__unix__) || defined(__APPLE__))
+#  include <pthread.h>
+static void lb_gravity_mark_forked(void) { lb_gravity_forked = 1; }
+__attribute__((constructor)) static void lb_gravity_register_fork_handler(void)
+{
+    pthread_atfork(NULL, NULL, lb_gravity_mark_forked);
+}
+#endif
+
 /* A variant: its tile loop and tile width (targets per tile). */
 typedef struct {
     lb_gravity_tiles_fn tiles;
@@ -367,7 +385,8 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
     int parallel = 0;
 #ifdef _OPENMP
     parallel = threads > 1 && ntiles > 1
-               && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS;
+               && (double)n * (double)n_active >= LB_PARALLEL_MIN_INTERACTIONS
+               && !lb_gravity_forked;
     if (parallel) {
         const ptrdiff_t share = (ntiles + 8 * (ptrdiff_t)threads - 1) / (8 * (ptrdiff_t)threads);
         if (share < per_chunk) per_chunk = share;
@@ -377,16 +396,24 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
 #endif
     const ptrdiff_t nchunks = (ntiles + per_chunk - 1) / per_chunk;
     ptrdiff_t first_bad = n;
+#define LB_GRAVITY_CHUNK(C)                                                               \
+    do {                                                                                  \
+        const ptrdiff_t lo = (C) * per_chunk * v.tile;                                    \
+        const ptrdiff_t hi = lo + per_chunk * v.tile < n ? lo + per_chunk * v.tile : n;   \
+        const ptrdiff_t b = v.tiles(position, x, y, z, gm, n_active, lo, hi, eps2, acc);  \
+        if (b >= 0 && b < first_bad) first_bad = b;                                       \
+    } while (0)
 #ifdef _OPENMP
-#pragma omp parallel for schedule(dynamic, 1) num_threads(threads) if (parallel) \
-    reduction(min : first_bad)
+    if (parallel) {
+#pragma omp parallel for schedule(dynamic, 1) num_threads(threads) reduction(min : first_bad)
+        for (ptrdiff_t c = 0; c < nchunks; c++) LB_GRAVITY_CHUNK(c);
+    } else
 #endif
-    for (ptrdiff_t c = 0; c < nchunks; c++) {
-        const ptrdiff_t lo = c * per_chunk * v.tile;
-        const ptrdiff_t hi = lo + per_chunk * v.tile < n ? lo + per_chunk * v.tile : n;
-        ptrdiff_t b = v.tiles(position, x, y, z, gm, n_active, lo, hi, eps2, acc);
-        if (b >= 0 && b < first_bad) first_bad = b;
+    {
+        /* No OpenMP construct at all on this path (see lb_gravity_forked). */
+        for (ptrdiff_t c = 0; c < nchunks; c++) LB_GRAVITY_CHUNK(c);
     }
+#undef LB_GRAVITY_CHUNK
     if (first_bad < n) {
         *bad = first_bad;
         return 1;

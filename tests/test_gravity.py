@@ -9,6 +9,7 @@ Two kinds of reference:
   multiply-add), which the kernel must match bit for bit.
 """
 import math
+import multiprocessing
 
 import numpy as np
 import pytest
@@ -152,6 +153,24 @@ def test_thread_count_invariance_bitwise(rng, n, n_active):
     for threads in (2, 3):
         many = _gravity.accelerations(position, mass, n_active, 1.0, 0.001, threads=threads)
         np.testing.assert_array_equal(many, one)
+
+
+def _child_accelerations(args):
+    position, mass, threads = args
+    return _gravity.accelerations(position, mass, position.shape[0], 1.0, threads=threads)
+
+
+@pytest.mark.skipif(not _gravity.HAVE_OPENMP, reason="built without OpenMP")
+@pytest.mark.skipif("fork" not in multiprocessing.get_all_start_methods(), reason="no fork() here")
+def test_threads_in_a_forked_child_do_not_hang(rng):
+    # GNU OpenMP's thread pool does not survive fork(); the kernel must notice that
+    # it runs in a forked child (after the parent ran a parallel region) and stay on
+    # one thread there, with the same bits.
+    position, mass, n_active = random_system(rng, 800, 800)
+    parent = _gravity.accelerations(position, mass, n_active, 1.0, threads=2)
+    with multiprocessing.get_context("fork").Pool(1) as pool:
+        child = pool.map_async(_child_accelerations, [(position, mass, 2)]).get(timeout=60)[0]
+    np.testing.assert_array_equal(child, parent)
 
 
 @pytest.mark.parametrize("isa", _gravity.available_isas())
