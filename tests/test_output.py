@@ -202,3 +202,35 @@ def test_run_argument_errors(tmp_path):
     with pytest.raises(ValidationError, match="elements_primary must name a body"):
         p.run(1.0, output=tmp_path / "x.h5", every=0.1, elements=True, elements_primary="nobody")
     assert p.time == 0.0 and not os.path.exists(tmp_path / "x.h5")
+
+
+def test_command_line_run_info_plot_resume(tmp_path, capsys):
+    from libration.cli import main
+
+    scenario = tmp_path / "s.toml"
+    assert main(["demo", "--write", str(scenario)]) == 0
+    assert main(["demo", "--write", str(scenario)]) == 2  # never overwrites
+    text = scenario.read_text().replace("count = 3000", "count = 40").replace(
+        "until = 36525.0", "until = 730.5").replace("every = 365.25", "every = 73.05")
+    scenario.write_text(text)
+    assert main(["run", str(scenario), "--quiet"]) == 0
+    out, ckpt = tmp_path / "calyra.h5", tmp_path / "calyra.ckpt"
+    data = open_output(out)
+    assert len(data) == 11 and data.complete and data.scenario == text and data.elements is not None
+    assert main(["run", str(scenario), "--quiet"]) == 2  # the checkpoint of that run exists
+    assert "libration resume" in capsys.readouterr().err
+    assert main(["resume", str(ckpt), "--until", "876.6", "--quiet"]) == 0
+    again = open_output(out)
+    assert len(again) == 13 and again.time[-1] == 876.6
+    np.testing.assert_array_equal(again.position[:11], data.position)
+    capsys.readouterr()
+    assert main(["info", str(out)]) == 0 and main(["info", str(ckpt)]) == 0
+    printed = capsys.readouterr().out
+    assert "libration output" in printed and "13 from time 0.0 to 876.6" in printed
+    assert "libration checkpoint" in printed and "continue with libration resume" in printed
+    pytest.importorskip("matplotlib")
+    assert main(["plot", str(out), "-o", str(tmp_path / "p.png")]) == 0
+    assert (tmp_path / "p.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    (tmp_path / "junk").write_text("junk")
+    assert main(["info", str(tmp_path / "junk")]) == 2
+    assert "neither a libration output file" in capsys.readouterr().err

@@ -19,6 +19,10 @@ EXIT_INTERRUPTED = 130
 
 
 def _cmd_demo(args: argparse.Namespace) -> int:
+    if args.write:
+        from .io.commands import write_demo
+
+        return write_demo(args.write)
     from .demo import run_demo
 
     result = run_demo(span_days=args.years * 365.25, step_days=args.step, method=args.method,
@@ -53,7 +57,13 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--step", type=float, default=2.0, help="step in days (default 2)")
     demo.add_argument("--method", default=None, help="stepping method (default: wisdom-holman)")
     demo.add_argument("--particles", type=int, default=None, help="belt test particles (default 3000)")
+    demo.add_argument("--write", metavar="FILE", default=None,
+                      help="write the demo scenario (TOML) to FILE as a starting point, and stop")
     demo.set_defaults(func=_cmd_demo)
+
+    from .io.commands import add_commands
+
+    add_commands(commands)  # run, resume, info, plot
 
     bench = commands.add_parser("bench", help="quick throughput benchmark of the gravity kernel")
     bench.set_defaults(func=_cmd_bench)

@@ -31,6 +31,7 @@ A scenario (schema version 1) has these tables; every key is optional unless mar
                     elements (true/false), elements_primary (default: the first body)
     [checkpoint]    file, interval (wall-clock seconds, default 60), steps (every N steps)
     [events]        passed to the propagator as ``events=`` (see libration.events)
+    [ensemble]      read by ``libration ensemble`` (see libration.ensemble); ignored here
 
 Times are in the time unit of ``units``; lengths, masses and speeds likewise.  Errors raise
 :class:`~libration.exceptions.ScenarioError` naming the file, the line, the key and what was
@@ -338,7 +339,7 @@ class _Parser:
             data = tomllib.loads(self.text)
         except tomllib.TOMLDecodeError as exc:
             raise ScenarioError(f"{self.source}: not valid TOML: {exc}") from None
-        allowed = {*_TABLES, "body", "population", "events"}
+        allowed = {*_TABLES, "body", "population", "events", "ensemble"}  # [ensemble]: libration.ensemble
         for key in data:
             if key not in allowed:
                 raise self.error((key,), f"unknown top-level key or table {key!r}; expected one of "

@@ -293,7 +293,9 @@ def _attrs(propagator, state) -> dict[str, Any]:
 
 
 def _output_time(state: dict[str, Any], k: int) -> float:
-    return state["t_start"] + state["direction"] * k * state["every"]
+    t = state["t_start"] + state["direction"] * k * state["every"]
+    # A grid time that equals the end time but for roundoff is the end time (no near-duplicate).
+    return state["until"] if abs(t - state["until"]) <= 1e-9 * state["every"] else t
 
 
 def _before(a: float, b: float, direction: float) -> bool:
