@@ -19,9 +19,12 @@
  *
  * Speed.  The sum needs one sqrt and one division per interaction; both run on the
  * same divider unit, whose throughput bounds the kernel: on the Xeon this was tuned
- * on, a loop of nothing but independent sqrt-multiply-divide chains runs at 1.08 ns
- * per element with AVX2 (9.3e8/s; 1.21 ns with AVX-512), so that is the ceiling per
- * core.  Everything else (loads, transposes, accumulators) is arranged around it.
+ * on, a loop doing nothing but sqrt, multiply and divide on independent AVX2 vectors
+ * of ordinary values took 1.25 ns per element (8.0e8/s), which is what the kernel
+ * reaches on an idle core.  Everything else (loads, transposes, accumulators) hides
+ * behind the divider.  (Faster formulas exist, such as approximate reciprocal square
+ * roots refined by Newton steps, but they are not correctly rounded and differ
+ * between CPUs, so they are not used.)
  *
  * Dispatch.  On x86-64 with gcc or clang the tile loop is compiled for SSE2 (the
  * x86-64 baseline), AVX2 and AVX-512F with intrinsics, and the variant named by
