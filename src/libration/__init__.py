@@ -3,6 +3,7 @@ from ._version import __version__
 from .exceptions import (ConvergenceError, FileFormatError, LibrationError, MethodError, ScenarioError,
                          SingularityError, UnitError, ValidationError)
 from .ensemble import Ensemble
+from .io import open_output
 from .methods import METHODS, StepReport
 from .propagator import Propagator
 from .system import System
@@ -13,6 +14,7 @@ __all__ = [
     "System",
     "Propagator",
     "Ensemble",
+    "open_output",
     "StepReport",
     "METHODS",
     "UNIT_SYSTEMS",
