@@ -100,12 +100,13 @@ class BulirschStoer(Integrator):
         self.control[_STEP] = first
         self.control[_ORDER] = _extrapolation.initial_order(self.tolerance)
         self.control[_FIRST] = 1
-        self.acceleration = np.zeros((n, 3))
         self._scratch = np.zeros(_extrapolation.scratch_size(n))
-        self._accelerate(self.position, self.acceleration)
+        # the state at the start of the last accepted step (dense output); the check of the
+        # accelerations also refuses coincident bodies before the first step
         self.prev_position = self.position.copy()
         self.prev_velocity = self.velocity.copy()
-        self.prev_acceleration = self.acceleration.copy()
+        self.prev_acceleration = np.zeros((n, 3))
+        self._accelerate(self.position, self.prev_acceleration)
         # compensation terms of the positions and velocities (compensated summation)
         self.carry = np.zeros((n, 6))
         self.prev_carry = np.zeros((n, 6))
@@ -152,10 +153,10 @@ class BulirschStoer(Integrator):
         """``(start, end)`` times of the last accepted step (equal before the first step)."""
         return float(self.control[_PREV_TIME]), float(self.control[_TIME])
 
-    def _run(self, t: float, control, position, velocity, acceleration, carry, *, exact: bool,
+    def _run(self, t: float, control, position, velocity, carry, *, exact: bool,
              keep: bool, max_steps: int, events) -> tuple[int, int, int, int, int]:
         return _extrapolation.advance(
-            control, self.mass, self.radius, position, velocity, acceleration, carry,
+            control, self.mass, self.radius, position, velocity, carry,
             self.prev_position, self.prev_velocity, self.prev_acceleration, self.prev_carry,
             self._scratch, self.n_active, self.G,
             self.softening, self.tolerance, self.options["absolute_tolerance"], self.options["min_step"],
@@ -178,7 +179,7 @@ class BulirschStoer(Integrator):
                                   f"step); bulirsch-stoer integrates forward only")
         events = self.event_config if self.events is not None else None
         status, done, kind, body_i, body_j = self._run(
-            t, self.control, self.position, self.velocity, self.acceleration, self.carry, exact=False,
+            t, self.control, self.position, self.velocity, self.carry, exact=False,
             keep=True,
             max_steps=self.options["max_steps"], events=events)
         report = StepReport(int(done), int(status))
@@ -231,14 +232,13 @@ class BulirschStoer(Integrator):
         control[_FIRST] = 0
         position = self.prev_position.copy()
         velocity = self.prev_velocity.copy()
-        acceleration = self.prev_acceleration.copy()
         if t - start <= 64 * np.finfo(float).eps * max(abs(start), abs(t)):
             # below roundoff of the time itself: a Taylor step is exact to double precision
             dt = t - start
             return (self.mass.copy(), self.prev_position + dt * (self.prev_velocity + 0.5 * dt * self.prev_acceleration),
                     self.prev_velocity + dt * self.prev_acceleration)
         carry = self.prev_carry.copy()
-        status, _, _, body_i, _ = self._run(t, control, position, velocity, acceleration, carry, exact=True,
+        status, _, _, body_i, _ = self._run(t, control, position, velocity, carry, exact=True,
                                             keep=False, max_steps=100_000, events=None)
         if status != STATUS_OK:
             raise ConvergenceError(f"bulirsch-stoer dense output at t = {t!r} failed with status {status}"
@@ -248,7 +248,7 @@ class BulirschStoer(Integrator):
     # ------------------------------------------------------------------- memory
     def memory(self) -> dict[str, Any]:
         memory = super().memory()
-        memory.update({"control": self.control.copy(), "acceleration": self.acceleration.copy(),
+        memory.update({"control": self.control.copy(),
                        "prev_position": self.prev_position.copy(),
                        "prev_velocity": self.prev_velocity.copy(),
                        "prev_acceleration": self.prev_acceleration.copy(),
@@ -258,7 +258,7 @@ class BulirschStoer(Integrator):
 
     def restore(self, memory: dict[str, Any]) -> None:
         super().restore(memory)
-        for key in ("control", "acceleration", "prev_position", "prev_velocity", "prev_acceleration",
+        for key in ("control", "prev_position", "prev_velocity", "prev_acceleration",
                     "carry", "prev_carry"):
             setattr(self, key, np.array(memory[key], dtype=np.float64, order="C"))
         if "event_config" in memory and np.asarray(memory["event_config"]).size == self.event_config.size:
