@@ -14,6 +14,7 @@ import shutil
 import subprocess
 import sys
 import sysconfig
+import time
 
 import numpy as np
 
@@ -62,6 +63,25 @@ def _build_flags() -> list[str] | None:
     return re.findall(r'"([^"]+)"', match.group(1)) if match else None
 
 
+def cpu_idle_fraction(seconds: float = 1.0) -> float | None:
+    """Share of all CPUs' time spent idle over the next ``seconds`` (Linux), else None.
+
+    Unlike the load average (a slow moving mean), this says whether other work is
+    running right now, which is what decides whether a thread speed-up is meaningful.
+    """
+    def sample() -> tuple[int, int]:
+        with open("/proc/stat", encoding="ascii") as f:
+            values = [int(v) for v in f.readline().split()[1:]]
+        return values[3] + values[4], sum(values)  # idle + iowait, total
+    try:
+        idle0, total0 = sample()
+        time.sleep(seconds)
+        idle1, total1 = sample()
+    except (OSError, ValueError, IndexError):
+        return None
+    return round((idle1 - idle0) / max(1, total1 - total0), 3)
+
+
 def describe_machine() -> dict:
     """Everything needed to compare benchmark results between machines and builds."""
     info = _cpuinfo()
@@ -81,6 +101,7 @@ def describe_machine() -> dict:
         "logical_cpus": os.cpu_count(),
         "usable_cpus": usable,
         "load_average_1_5_15min": load,
+        "cpu_idle_fraction_before": cpu_idle_fraction(),
         "platform": platform.platform(),
         "machine": platform.machine(),
         "python": sys.version.split()[0],

@@ -22,7 +22,7 @@ import time
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from _machine import describe_machine  # noqa: E402
+from _machine import cpu_idle_fraction, describe_machine  # noqa: E402
 
 from libration import _gravity  # noqa: E402
 from libration.bench import (PARTICLE_SOURCES, best_time, format_table, make_system,  # noqa: E402
@@ -37,6 +37,8 @@ NUMPY_SINGLE_SHOT_INTERACTIONS = 5e7
 #: The issue's targets (issue 2, "Speed and memory"), for the summary line.
 TARGET_ONE_CORE_N1024 = 8.4e8
 TARGET_TWO_THREAD_SPEEDUP = 1.8
+#: A run counts as clean when at least this share of all CPUs was idle just before and after.
+CLEAN_IDLE_FRACTION = 0.9
 
 
 def isa_rows(n: int = 1024) -> list[dict]:
@@ -78,6 +80,7 @@ def main(argv: list[str] | None = None) -> int:
     variants = isa_rows()
     elapsed = time.perf_counter() - started
     machine["load_average_after"] = [round(x, 2) for x in os.getloadavg()] if hasattr(os, "getloadavg") else None
+    machine["cpu_idle_fraction_after"] = cpu_idle_fraction()
 
     print(format_table(rows))
     print()
@@ -100,9 +103,15 @@ def main(argv: list[str] | None = None) -> int:
     print("summary:", json.dumps({k: round(v, 3) if isinstance(v, float) and v < 1e3 else v
                                   for k, v in summary.items()}))
     print(f"machine: {machine['cpu_model']}, {machine['usable_cpus']} usable CPUs, "
-          f"load {machine['load_average_1_5_15min']} -> {machine['load_average_after']}; {elapsed:.0f} s")
+          f"idle share of all CPUs {machine['cpu_idle_fraction_before']} before, "
+          f"{machine['cpu_idle_fraction_after']} after; {elapsed:.0f} s")
 
-    result = {"benchmark": "gravity", "quick": args.quick, "machine": machine, "elapsed_s": elapsed,
+    idle = [machine.get("cpu_idle_fraction_before"), machine.get("cpu_idle_fraction_after")]
+    clean = all(x is not None and x >= CLEAN_IDLE_FRACTION for x in idle)
+    if not clean:
+        print(f"warning: the CPUs were not idle around the run (idle share {idle}); other work "
+              f"competed, and the two-thread figures in particular are not meaningful")
+    result = {"benchmark": "gravity", "clean": clean, "quick": args.quick, "machine": machine, "elapsed_s": elapsed,
               "units": {"rate": "interactions per second", "time": "seconds per call"},
               "rows": rows, "loop_variants": variants, "summary": summary}
     os.makedirs(os.path.dirname(os.path.abspath(args.output)), exist_ok=True)
