@@ -17,6 +17,9 @@ cdef extern from "events_kernel.h" nogil:
         int last_i
         int last_j
         int tracked
+    int lb_event_is_tracked(const lb_event_config* c, int kind, Py_ssize_t i, Py_ssize_t j)
+    int lb_event_report(lb_event_config* c, int kind, Py_ssize_t i, Py_ssize_t j,
+                        Py_ssize_t* body_i, Py_ssize_t* body_j)
     int lb_check_events(const double* position, const double* velocity, const double* mass,
                         const double* radius, Py_ssize_t n, Py_ssize_t n_active, double G,
                         const lb_event_config* config, Py_ssize_t* body_i, Py_ssize_t* body_j)

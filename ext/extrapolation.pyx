@@ -41,7 +41,8 @@ from libc.string cimport memcpy
 from common cimport (kahan_add, STATUS_OK, STATUS_SINGULAR, STATUS_STEP_UNDERFLOW, STATUS_MAX_STEPS,
                      STATUS_EVENT)
 from forces cimport lb_gravity_accelerations
-from events cimport lb_event_config, lb_check_events
+from events cimport (lb_event_config, lb_check_events, lb_event_is_tracked, lb_event_report,
+                    LB_EVENT_COLLISION)
 
 # Lines of the extrapolation tableau (substep counts 2, 4, ..., 2 * KMAX).
 cdef enum:
@@ -403,6 +404,99 @@ cdef int bs_step(bs_problem* p, const double* x_start, const double* cx, const d
     return STATUS_OK
 
 
+cdef double hermite_distance2(const double* a0, const double* b0, const double* a1,
+                              const double* b1, double* s_io) noexcept nogil:
+    """Squared length of the cubic Hermite r(s) (ends a0, a1; scaled slopes b0, b1) at a
+    local minimum near s_io (a few Newton steps on r . r' = 0, kept inside [0, 1])."""
+    cdef double s = s_io[0], r2 = 0.0, phi, dphi, q, dq, ddq
+    cdef int it, c
+    for it in range(6):
+        phi = 0.0
+        dphi = 0.0
+        for c in range(3):
+            q = (((2.0 * s - 3.0) * s * s + 1.0) * a0[c] + (((s - 2.0) * s + 1.0) * s) * b0[c]
+                 + ((3.0 - 2.0 * s) * s * s) * a1[c] + ((s - 1.0) * s * s) * b1[c])
+            dq = ((6.0 * s - 6.0) * s * a0[c] + ((3.0 * s - 4.0) * s + 1.0) * b0[c]
+                  + (6.0 - 6.0 * s) * s * a1[c] + (3.0 * s - 2.0) * s * b1[c])
+            ddq = ((12.0 * s - 6.0) * a0[c] + (6.0 * s - 4.0) * b0[c] + (6.0 - 12.0 * s) * a1[c]
+                   + (6.0 * s - 2.0) * b1[c])
+            phi += q * dq
+            dphi += dq * dq + q * ddq
+        if not dphi > 0.0:
+            break
+        s = min(1.0, max(0.0, s - phi / dphi))
+    for c in range(3):
+        q = (((2.0 * s - 3.0) * s * s + 1.0) * a0[c] + (((s - 2.0) * s + 1.0) * s) * b0[c]
+             + ((3.0 - 2.0 * s) * s * s) * a1[c] + ((s - 1.0) * s * s) * b1[c])
+        r2 += q * q
+    s_io[0] = s
+    return r2
+
+
+cdef int bs_sweep_collisions(bs_problem* p, const double* px, const double* pv, const double* x,
+                             const double* v, double H, const double* radius,
+                             const lb_event_config* events, Py_ssize_t* body_i,
+                             Py_ssize_t* body_j) noexcept nogil:
+    """Contacts that begin and end inside one step (a fast flyby).
+
+    The per-step check sees only the step ends.  For each pair apart at both ends but able
+    to come within the sum of radii in between (judged from the relative speeds), the
+    relative position is followed on the cubic Hermite interpolant of the two ends and its
+    closest approach found (Newton from several starting points); a dip below the sum of
+    radii is reported as a collision (its time is then located on the dense output).
+    """
+    cdef Py_ssize_t i, j, c
+    cdef int k
+    cdef double reach, d0, d1, w0, w1, r2, s, q
+    cdef double a0[3]
+    cdef double a1[3]
+    cdef double b0[3]
+    cdef double b1[3]
+    for i in range(p.n_active):
+        for j in range(i + 1, p.n):
+            reach = radius[i] + radius[j]
+            if not reach > 0.0:
+                continue
+            d0 = 0.0
+            d1 = 0.0
+            w0 = 0.0
+            w1 = 0.0
+            for c in range(3):
+                a0[c] = px[3 * j + c] - px[3 * i + c]
+                a1[c] = x[3 * j + c] - x[3 * i + c]
+                b0[c] = (pv[3 * j + c] - pv[3 * i + c]) * H
+                b1[c] = (v[3 * j + c] - v[3 * i + c]) * H
+                d0 += a0[c] * a0[c]
+                d1 += a1[c] * a1[c]
+                w0 += b0[c] * b0[c]
+                w1 += b1[c] * b1[c]
+            d0 = sqrt(d0)
+            d1 = sqrt(d1)
+            # in contact at an end: the step-end check has it (or it is already tracked)
+            if d0 < reach or d1 < reach:
+                continue
+            if min(d0, d1) - (sqrt(w0) + sqrt(w1)) > reach:
+                continue
+            # closest approach on the interpolant: Newton on r(s) . r'(s) = 0 from the
+            # chord's closest point and from seven inner points (paths may curve)
+            for k in range(8):
+                if k == 0:
+                    q = 0.0
+                    r2 = 0.0
+                    for c in range(3):
+                        q += a0[c] * (a1[c] - a0[c])
+                        r2 += (a1[c] - a0[c]) * (a1[c] - a0[c])
+                    s = min(1.0, max(0.0, -q / r2)) if r2 > 0.0 else 0.5
+                else:
+                    s = k / 8.0
+                if hermite_distance2(a0, b0, a1, b1, &s) < reach * reach:
+                    if lb_event_is_tracked(events, LB_EVENT_COLLISION, i, j):
+                        break
+                    return lb_event_report(<lb_event_config*> events, LB_EVENT_COLLISION, i, j,
+                                           body_i, body_j)
+    return 0
+
+
 cdef int bs_loop(bs_problem* p, double* control, double* x, double* v,
                  double* cx, double* cv, double* px, double* pv, double* pa, double* pcx,
                  double* pcv, int keep_prev, double t_end, int exact_end,
@@ -456,6 +550,9 @@ cdef int bs_loop(bs_problem* p, double* control, double* x, double* v,
         if events != NULL and events.enabled:
             kind[0] = lb_check_events(x, v, p.mass, radius, p.n, p.n_active, p.G, events, body_i,
                                       body_j)
+            if not kind[0] and keep_prev and events.collisions and radius != NULL:
+                kind[0] = bs_sweep_collisions(p, px, pv, x, v, H_used, radius, events, body_i,
+                                              body_j)
             if kind[0]:
                 return STATUS_EVENT
     return STATUS_OK

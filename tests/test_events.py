@@ -250,3 +250,20 @@ def test_collision_remove_drops_the_lighter_body(method):
     p.advance(1.5)
     assert p.names == ["big"] and p.event_log[0]["removed"] == "small"
     assert p.system.mass.tolist() == [0.7]
+
+
+def test_bulirsch_stoer_finds_a_contact_shorter_than_its_step():
+    # a fast massless dart crosses the disc of a (nearly massless) planet 0.005 from its
+    # centre: the contact (radius 0.01) lasts ~1e-3, the steps ~4e-2; both step ends are clear
+    t_hit, speed, b = 0.5, 20.0, 0.005
+    planet_at = np.array([math.cos(t_hit), math.sin(t_hit), 0.0])
+    start = planet_at + [0.0, b, 0.0] - np.array([speed * t_hit, 0.0, 0.0])
+    s = lb.System([1.0, 1e-9, 0.0], [[0, 0, 0], [1, 0, 0], start], [[0, 0, 0], [0, 1, 0], [speed, 0, 0]],
+                  radius=[0.0, 0.01, 0.0], names=["star", "planet", "dart"])
+    p = lb.Propagator(s, "bulirsch-stoer", tolerance=1e-10, events={"collision": "record"})
+    p.advance(1.0)
+    assert p.steps < 100
+    (entry,) = p.event_log
+    assert entry["names"] == ["planet", "dart"] and entry["step_end"] > entry["time"] + 1e-3
+    assert abs(entry["distance"] - 0.01) < 1e-9       # located at first contact
+    assert abs(entry["time"] - (t_hit - math.sqrt(0.01 ** 2 - b ** 2) / speed)) < 1e-3

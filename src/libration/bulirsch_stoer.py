@@ -211,7 +211,7 @@ class BulirschStoer(Integrator):
 
     def _locate(self, kind: str, bodies: tuple[int, ...]) -> float:
         """Event time inside the last step, by root finding on the dense output."""
-        from .events import event_function, locate_root
+        from .events import event_function, locate_root, minimize_scalar
 
         start, end = self.last_step
 
@@ -220,6 +220,10 @@ class BulirschStoer(Integrator):
             return event_function(self.events, kind, bodies, mass, position, velocity, self.radius,
                                   self.n_active, self.G)
 
+        if kind == "collision" and g(end) > 0:
+            # a contact inside the step that is over by its end (found by the kernel's sweep):
+            # the time of closest approach first, then the contact before it
+            end = minimize_scalar(g, start, end)
         return locate_root(g, start, end)
 
     def state_at(self, t: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -185,6 +185,32 @@ def locate_root(g: Callable[[float], float], start: float, end: float) -> float:
     return b
 
 
+def minimize_scalar(g: Callable[[float], float], start: float, end: float) -> float:
+    """Where ``g`` is smallest in [start, end] (golden-section search, to ~1e-12 of the width).
+
+    Used for a contact that begins and ends inside one step: its time of closest approach
+    brackets the contact with the step start.
+    """
+    ratio = (math.sqrt(5.0) - 1.0) / 2.0
+    a, b = float(start), float(end)
+    c, d = b - ratio * (b - a), a + ratio * (b - a)
+    gc, gd = g(c), g(d)
+    for _ in range(80):
+        if b - a <= 1e-12 * (float(end) - float(start)) or gc < 0 or gd < 0:
+            break
+        if gc < gd:
+            b, d, gd = d, c, gc
+            c = b - ratio * (b - a)
+            gc = g(c)
+        else:
+            a, c, gc = c, d, gd
+            d = a + ratio * (b - a)
+            gd = g(d)
+    if gc < 0 or gd < 0:
+        return c if gc <= gd else d
+    return 0.5 * (a + b)
+
+
 # ------------------------------------------------------------------------ responses
 def _state_at(propagator, t: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     integrator = propagator.integrator
