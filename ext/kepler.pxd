@@ -98,14 +98,16 @@ cdef inline double lb_kepler_reduce(double gm, double beta, double dt) noexcept 
 
 cdef inline double lb_kepler_guess(double gm, double r0, double inv_r0, double eta, double zeta,
                                    double beta, double dt) noexcept nogil:
-    """Initial universal anomaly.  Short steps (dt^2 |beta| / r0^2 < 0.09, every planetary step):
+    """Initial universal anomaly.  Steps up to about a radian of anomaly (dt^2 |beta| / r0^2 < 1,
+    every planetary step; the error is then ~(anomaly)^4 / 24 relative, which one quartic
+    iteration brings to rounding level at a tenth of a radian):
     the inverted series s = u - eta u^2 / (2 r0) + (eta^2 / (2 r0^2) - zeta / (6 r0)) u^3 with
     u = dt / r0, from t(s) = r0 s + eta s^2 / 2 + zeta s^3 / 6 + O(s^4).  Longer ones: the anomaly
     difference of Danby's starter E = M + 0.85 e sign(sin M) (Danby 1988, eq. 6.6.5), or, on
     hyperbolic orbits, H = sign(M) ln(2 |M| / e + 1.8) (Danby 1988, sec. 6.9), over sqrt(|beta|)."""
     cdef double u = dt * inv_r0
     cdef double s, root, ecos, esin, ecc, e0, m1, e1, h0, a
-    if u * u * fabs(beta) < 0.09:
+    if u * u * fabs(beta) < 1.0:
         a = eta * inv_r0
         s = u * (1.0 + u * (-0.5 * a + u * (0.5 * a * a - zeta * inv_r0 * (1.0 / 6.0))))
         if s * dt <= 0.0 or fabs(s) > 2.0 * fabs(u):
