@@ -37,19 +37,24 @@ _TIME, _STEP, _ORDER, _FIRST, _PREV_TIME, _PREV_ORDER, _EVALUATIONS, _ACCEPTED, 
 
 def _initial_step(mass: np.ndarray, position: np.ndarray, velocity: np.ndarray, n_active: int,
                   G: float) -> float:
-    """A first step: 1/50 of the shortest two-body time scale min sqrt(r^3 / G(m_i + m_j))."""
+    """A first step: 1/50 of the shortest time scale over pairs with a massive member,
+    min(sqrt(r^3 / G (m_i + m_j)), r / |v_i - v_j|)."""
     n = mass.shape[0]
     best = math.inf
-    for i in range(min(n_active, n)):
-        d = position[i + 1:] - position[i]
-        r = np.sqrt(np.einsum("ij,ij->i", d, d))
-        gm = G * (mass[i] + mass[i + 1:])
-        ok = (r > 0) & (gm > 0)
+    block = max(1, 4096 // max(n, 1))  # sources per numpy block (memory ~ block * n)
+    for lo in range(0, min(n_active, n), block):
+        hi = min(lo + block, n_active, n)
+        d = position[None, :, :] - position[lo:hi, None, :]
+        r = np.sqrt(np.einsum("ijk,ijk->ij", d, d))
+        dv = velocity[None, :, :] - velocity[lo:hi, None, :]
+        v = np.sqrt(np.einsum("ijk,ijk->ij", dv, dv))
+        gm = G * (mass[lo:hi, None] + mass[None, :])
+        # each pair once: partners after the source (the source itself excluded)
+        later = np.arange(n)[None, :] > np.arange(lo, hi)[:, None]
+        ok = later & (r > 0) & (gm > 0)
         if ok.any():
             best = min(best, float(np.min(np.sqrt(r[ok] ** 3 / gm[ok]))))
-        dv = velocity[i + 1:] - velocity[i]
-        v = np.sqrt(np.einsum("ij,ij->i", dv, dv))
-        ok = (r > 0) & (v > 0)
+        ok = later & (r > 0) & (v > 0)
         if ok.any():
             best = min(best, float(np.min(r[ok] / v[ok])))
     return 1.0 if not math.isfinite(best) else 0.02 * best
