@@ -281,3 +281,17 @@ def test_corrected_outputs_off_the_step_grid_keep_the_corrector_accuracy():
     plain = _energy_error(system, 100.0, 10000.0, coordinates="jacobi")
     assert off_grid < 3 * on_grid + 1e-14
     assert off_grid < plain / 1000
+
+
+@pytest.mark.parametrize("coordinates", COORDS)
+def test_thread_count_does_not_change_a_bit(coordinates):
+    """Enough test particles for the gravity kernel to use two threads: same bits as one."""
+    system = planets(70_000)
+    runs = []
+    for threads in (1, 2):
+        p = lb.Propagator(system, method="wisdom-holman", step=10.0, coordinates=coordinates,
+                          threads=threads)
+        p.advance(10.0 * 5)
+        runs.append(p.system)
+    np.testing.assert_array_equal(runs[0].position, runs[1].position)
+    np.testing.assert_array_equal(runs[0].velocity, runs[1].velocity)
