@@ -119,6 +119,7 @@ class OutputWriter:
         self._buffer = {key: np.empty((self.capacity,) + shape, dtype) for key, (shape, dtype) in self._rows.items()}
         self._buffered = 0
         self._column = {name: i for i, name in enumerate(self.names)}
+        self._same_names: list[str] | None = None
 
     def _create(self, radius, attrs, scenario_text, elements_primary) -> None:
         h5py = _h5py()
@@ -159,8 +160,11 @@ class OutputWriter:
         """
         i = self._buffered
         remap = None
-        if names is not None and list(names) != self.names:
-            remap = [self._column.get(name, -1) for name in names]
+        if names is not None and names is not self._same_names:
+            if list(names) == self.names:
+                self._same_names = names  # the propagator keeps this list until bodies change
+            else:
+                remap = [self._column.get(name, -1) for name in names]
         for key, buf in self._buffer.items():
             value = row[key]
             if remap is not None and key.split("/")[0] in ("snapshots", "elements") and buf.ndim > 1:

@@ -129,9 +129,15 @@ class _Progress:
 
 
 def _snapshot(propagator, state: dict[str, Any]) -> tuple[dict[str, Any], list[str]]:
-    system = propagator.system
+    from ..system import System
+
+    # The propagator's own synchronised copies: already validated, so no checks again.
+    mass, position, velocity = propagator._state()
+    system = System._trusted(mass, position, velocity, propagator.units, propagator.names,
+                             propagator.integrator.radius)
     energy = system.energy(propagator._settings["softening"])
-    momentum = system.angular_momentum()
+    active = system.n_active  # test particles (mass 0) carry no angular momentum
+    momentum = np.einsum("i,ij->j", mass[:active], np.cross(position[:active], velocity[:active]))
     e0, l0 = state["energy0"], np.asarray(state["angular_momentum0"])
     l0_norm = float(np.linalg.norm(l0))
     row: dict[str, Any] = {
@@ -164,7 +170,7 @@ def _snapshot(propagator, state: dict[str, Any]) -> tuple[dict[str, Any], list[s
                     values[name][others] = getattr(elements, name)
         for name in ELEMENTS_ORDER:
             row[f"elements/{name}"] = values[name]
-    return row, system.names
+    return row, propagator.names
 
 
 ELEMENTS_ORDER = ELEMENT_NAMES
@@ -271,7 +277,9 @@ def _new_state(propagator, until, output, every, checkpoint, checkpoint_interval
         "scenario_text": scenario_text or "",
         "next_index": 0, "cursor": 0, "last_snapshot_time": None,
         "energy0": float(system.energy(propagator._settings["softening"])),
-        "angular_momentum0": np.asarray(system.angular_momentum(), dtype=np.float64),
+        "angular_momentum0": np.einsum("i,ij->j", system.mass[:system.n_active],
+                                       np.cross(system.position[:system.n_active],
+                                                system.velocity[:system.n_active])),
         "energy_error": 0.0,
     }
 
