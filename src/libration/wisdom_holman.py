@@ -15,7 +15,10 @@ corrector : int, 0 (default), 3, 5, 7, 9 or 11
     X(a, b) = drift(a h) kick(b h) drift(-a h), with a_i = i / sqrt(10) and b_i solving
     sum_i 2 b_i a_i^(2k+1) / (2k+1)! = B_(2k+2) / (2k+2)!  (k < K = (corrector - 1) / 2), the
     Bernoulli-number coefficients of (z/2) coth(z/2) in the map's first-order error (derived
-    here from the Baker-Campbell-Hausdorff series; WHT96 sec. 3 give the construction).  The
+    here from the Baker-Campbell-Hausdorff series; WHT96 sec. 3 give the construction).  Each
+    order is verified by the fall of the energy error with the step (tests/test_wisdom_holman.py:
+    factors 22, 102, 412, 1482, 3380 per halving for orders 3..11 where the eps^2 floor is
+    low).  The
     democratic-heliocentric map has three non-commuting parts (kick, jump, Kepler), for which
     these two-part correctors do not apply: it offers corrector = 0 only.
 
