@@ -307,3 +307,18 @@ def test_thread_count_does_not_change_a_bit(coordinates):
         runs.append(p.system)
     np.testing.assert_array_equal(runs[0].position, runs[1].position)
     np.testing.assert_array_equal(runs[0].velocity, runs[1].velocity)
+
+
+def test_checkpoint_file_round_trip(tmp_path):
+    """Through a checkpoint file (libration.io), saved off the step grid, with a corrector."""
+    system = planets(2)
+    reference = lb.Propagator(system, method="wisdom-holman", step=10.0, coordinates="jacobi", corrector=5)
+    reference.advance(5000.0)
+    first = lb.Propagator(system, method="wisdom-holman", step=10.0, coordinates="jacobi", corrector=5)
+    first.advance(2003.0)
+    first.save(tmp_path / "run.ckpt")
+    second = lb.Propagator.load(tmp_path / "run.ckpt")
+    assert second.options == {"coordinates": "jacobi", "corrector": 5}
+    second.advance(5000.0)
+    np.testing.assert_array_equal(second.system.position, reference.system.position)
+    np.testing.assert_array_equal(second.system.velocity, reference.system.velocity)
