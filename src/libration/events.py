@@ -9,8 +9,14 @@ Detection runs in the compiled loops after every step (``ext/events_kernel.h``):
 * **escape** -- a body farther than ``escape_distance`` from the barycentre of the massive
   bodies and unbound (positive two-body energy) relative to all the others.
 
-A condition that keeps holding (a slow encounter, a receding escaper) is reported once,
-when it starts, and again only after it has stopped holding.
+Pairs are checked when at least one member is massive (test particles among themselves
+are not).  A condition that keeps holding (a slow encounter, a receding escaper) is
+reported once, when it starts, and again only after it has stopped holding.  One event is
+reported per step end; another one that starts in the same step is reported at the next
+step end (its time then falls back to that step end when it cannot be bracketed).
+Bulirsch–Stoer also sweeps each step for contacts that begin and end inside it (its steps
+can be long); fixed-step methods see the step ends only, so choose the step small compared
+with the duration of the contacts that matter.
 
 Responses (the value of each key in the user dict):
 
