@@ -11,7 +11,8 @@ Parts (all in one run, so the ratios mean something on any machine):
   precision  final position error (against Yoshida-8 at a small step) and wall time over 10^5
              and 10^6 days for wisdom-holman, leapfrog, yoshida4 and scipy's DOP853 with a
              numpy right-hand side.
-Writes bench/results/planetary.json (with the machine's description) and planetary.png.
+Writes bench/results/planetary.json (with the machine's description), the printed tables to
+planetary.txt and the work-precision plot to planetary.png.
 
     python bench/planetary.py [--quick] [--output PATH]
 """
@@ -307,20 +308,29 @@ def main(argv: list[str] | None = None) -> int:
         json.dump(results, f, indent=2)
     plot(results, os.path.splitext(args.output)[0] + ".png")
 
-    print(f"{'system':32s} {'DH ns':>8s} {'Jacobi':>8s} {'C plain':>8s} {'C lock':>8s} {'DH/lock':>8s}")
+    lines: list[str] = []
+
+    def out(text: str = "") -> None:
+        lines.append(text)
+        print(text)
+
+    out(f"{'system':32s} {'DH ns':>8s} {'Jacobi':>8s} {'C plain':>8s} {'C lock':>8s} {'DH/lock':>8s}")
     for row in per_step:
-        print(f"{row['system']:32s} {row['libration_dh_ns']:8.0f} {row['libration_jacobi_ns']:8.0f} "
-              f"{row['c_plain_ns']:8.0f} {row['c_lockstep_ns']:8.0f} {row['ratio_vs_c_lockstep']:8.2f}")
-    print(f"\n{'system':28s} {'particles':>9s} {'ns/step':>10s} {'particle-steps/s':>17s}")
+        out(f"{row['system']:32s} {row['libration_dh_ns']:8.0f} {row['libration_jacobi_ns']:8.0f} "
+          f"{row['c_plain_ns']:8.0f} {row['c_lockstep_ns']:8.0f} {row['ratio_vs_c_lockstep']:8.2f}")
+    out(f"\n{'system':28s} {'particles':>9s} {'ns/step':>10s} {'particle-steps/s':>17s}")
     for row in particles:
-        print(f"{row['system']:28s} {row['particles']:9d} {row['ns_per_step']:10.0f} "
-              f"{row['particle_steps_per_s']:17.3g}")
+        out(f"{row['system']:28s} {row['particles']:9d} {row['ns_per_step']:10.0f} "
+          f"{row['particle_steps_per_s']:17.3g}")
     for table in results["work_precision"]:
-        print(f"\nwork-precision over {table['t_end_days']:.0e} days (reference {table['reference']}, "
-              f"self-check {table['reference_self_check_au']:.1e} au)")
+        out(f"\nwork-precision over {table['t_end_days']:.0e} days (reference {table['reference']}, "
+          f"self-check {table['reference_self_check_au']:.1e} au)")
         for row in table["rows"]:
-            print(f"  {row['method']:26s} {row['setting']:18s} {row['seconds']:8.3f} s  {row['error_au']:.2e} au")
-    print(f"\nwrote {args.output} and {os.path.splitext(args.output)[0]}.png")
+            out(f"  {row['method']:26s} {row['setting']:18s} {row['seconds']:8.3f} s  {row['error_au']:.2e} au")
+    table_path = os.path.splitext(args.output)[0] + ".txt"
+    with open(table_path, "w", encoding="utf-8") as f:
+        f.write("\n".join(lines) + "\n")
+    print(f"\nwrote {args.output}, {table_path} and {os.path.splitext(args.output)[0]}.png")
     return 0
 
 
