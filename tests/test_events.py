@@ -267,3 +267,19 @@ def test_bulirsch_stoer_finds_a_contact_shorter_than_its_step():
     assert entry["names"] == ["planet", "dart"] and entry["step_end"] > entry["time"] + 1e-3
     assert abs(entry["distance"] - 0.01) < 1e-9       # located at first contact
     assert abs(entry["time"] - (t_hit - math.sqrt(0.01 ** 2 - b ** 2) / speed)) < 1e-3
+
+
+@pytest.mark.parametrize("method", ["bulirsch-stoer", "leapfrog"])
+def test_two_contacts_in_one_step_are_both_logged(method):
+    # two head-on pairs 100 apart (their mutual pull is ~1e-4 of the pairs' own): contacts at
+    # t = 1.0953 and ~1.0969, inside the one leapfrog step [1.09, 1.10]
+    position = [[-0.5, 0, 0], [0.5, 0, 0], [-0.5005, 100, 0], [0.5005, 100, 0]]
+    s = lb.System([0.5] * 4, position, np.zeros((4, 3)), radius=[0.05] * 4)
+    p = lb.Propagator(s, method, events={"collision": "record"}, **kw(method, 0.01))
+    p.advance(1.1)
+    pairs = sorted(tuple(e["bodies"]) for e in p.event_log)
+    assert pairs == [(0, 1), (2, 3)]
+    assert p.event_log[0]["step_end"] == p.event_log[1]["step_end"]   # found in one check
+    for entry in p.event_log:
+        assert abs(entry["distance"] - 0.1) < 1e-3
+        assert 1.09 < entry["time"] < 1.1

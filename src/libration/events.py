@@ -11,9 +11,9 @@ Detection runs in the compiled loops after every step (``ext/events_kernel.h``):
 
 Pairs are checked when at least one member is massive (test particles among themselves
 are not).  A condition that keeps holding (a slow encounter, a receding escaper) is
-reported once, when it starts, and again only after it has stopped holding.  One event is
-reported per step end; another one that starts in the same step is reported at the next
-step end (its time then falls back to that step end when it cannot be bracketed).
+reported once, when it starts, and again only after it has stopped holding.  Several
+conditions starting in the same step are all handled (a recorded event is followed by a
+check for the next one on the same state).
 Bulirsch–Stoer also sweeps each step for contacts that begin and end inside it (its steps
 can be long); fixed-step methods see the step ends only, so choose the step small compared
 with the duration of the contacts that matter.
@@ -281,6 +281,25 @@ def merge_bodies(mass, position, velocity, radius, names, i: int, j: int):
     return mass[keep_mask], position[keep_mask], velocity[keep_mask], radius[keep_mask], names
 
 
+def _drain(propagator) -> bool:
+    """Handle further conditions that began in the same step (the kernel reports one)."""
+    from .methods import StepReport
+
+    integrator = propagator.integrator
+    mass, position, velocity = integrator.state()
+    kind, i, j = _extrapolation.check_events(position, velocity, mass, integrator.radius,
+                                             integrator.n_active, integrator.G, integrator.event_config)
+    if kind is None:
+        return True
+    bodies = tuple(b for b in (i, j) if b >= 0)
+    report = StepReport(0, STATUS_EVENT, bodies=bodies)
+    if integrator.adaptive:
+        t_event = integrator._locate(kind, bodies)
+        report.event = {"kind": kind, "bodies": bodies, "step_end": integrator.time, "time": t_event}
+        propagator._time = t_event
+    return handle(propagator, report)
+
+
 def handle(propagator, report) -> bool:
     """Respond to a ``STATUS_EVENT`` report; True to go on, False to stop the propagator.
 
@@ -308,7 +327,7 @@ def handle(propagator, report) -> bool:
         entry["distance"] = float(np.linalg.norm(position[bodies[0]] - position[bodies[1]]))
     propagator.event_log.append(entry)
     if action == "record":
-        return True
+        return _drain(propagator)
     if action == "stop":
         who = " and ".join(entry["names"])
         propagator.status = STATUS_EVENT
