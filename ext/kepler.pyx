@@ -66,6 +66,12 @@ def drift(gm, position, velocity, double dt):
     bad_gm = np.flatnonzero(~(np.isfinite(gm_array) & (gm_array > 0)))
     if bad_gm.size:
         raise ValidationError(f"gm[{bad_gm[0]}] must be finite and > 0, got {gm_array[bad_gm[0]]}")
+    if not np.isfinite(dt):
+        raise ValidationError(f"dt must be finite, got {dt!r}")
+    bad_state = np.flatnonzero(~(np.isfinite(pos2).all(axis=1) & np.isfinite(vel2).all(axis=1)))
+    if bad_state.size:
+        raise ValidationError(f"position[{bad_state[0]}] and velocity[{bad_state[0]}] must be finite, "
+                              f"got {pos2[bad_state[0]]} and {vel2[bad_state[0]]}")
     stride = 0 if gm_array.size == 1 else 1
     bad = _drift(gm_array, stride, pos2, vel2, dt)
     if bad >= 0:
