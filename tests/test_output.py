@@ -236,3 +236,20 @@ def test_command_line_run_info_plot_resume(tmp_path, capsys):
     (tmp_path / "junk").write_text("junk")
     assert main(["info", str(tmp_path / "junk")]) == 2
     assert "neither a libration output file" in capsys.readouterr().err
+
+
+def test_run_with_events_logs_them_and_keeps_columns(tmp_path):
+    # Two planets fall into the star (merged) and a particle escapes (stop): a quick event storm.
+    system = lb.System([1.0, 1e-3, 1e-3, 0.0], [[0, 0, 0], [1, 0, 0], [-1, 0, 0], [3, 0, 0]],
+                       [[0, 0, 0], [0, 1, 0], [0, 1, 0], [0, 2, 0]],
+                       radius=[0.005, 0.05, 0.05, 0.0]).barycentric()
+    p = lb.Propagator(system, "leapfrog", step=0.001,
+                      events={"collision": "merge", "escape": "stop", "escape_distance": 20.0})
+    result = p.run(200.0, output=tmp_path / "ev.h5", every=1.0)
+    assert result.status == "stopped" and "escape" in result.message and p.time < 200.0
+    out = open_output(tmp_path / "ev.h5")
+    assert out.complete and out.names == ["body0", "body1", "body2", "body3"]
+    assert out.time[-1] == p.time and np.all(np.diff(out.time) > 0)
+    assert [e["kind"] for e in out.event_log] == [e["kind"] for e in p.event_log]
+    assert np.isnan(out.mass[-1, 1:3]).all() and out.mass[-1, 0] == pytest.approx(1.002)
+    assert not np.isnan(out.mass[0]).any()

@@ -112,7 +112,7 @@ class _Progress:
             return
         self.bar = tqdm(total=self.total if self.total > 0 else 1.0, file=sys.stderr, unit=time_unit,
                         dynamic_ncols=True, leave=True,
-                        bar_format="{l_bar}{bar}| {n:.4g}/{total:.4g} {unit} [{elapsed}<{remaining}{postfix}]")
+                        bar_format="{l_bar}{bar}| {n:.6g}/{total:.6g} {unit} [{elapsed}<{remaining}{postfix}]")
 
     def update(self, time: float, steps: int, energy_error: float) -> None:
         if self.bar is None:
