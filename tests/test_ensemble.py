@@ -362,6 +362,10 @@ def test_command_line_runs_a_scenario_ensemble_and_draws_its_map(tmp_path, capsy
     table = Ensemble.open(tmp_path / "scan").results()
     assert set(table["status"]) <= {"finished", "stopped"} and len(table) == 6
     assert (tmp_path / "scan" / "map_first_encounter_time.png").exists()
+    # `libration plot` draws an ensemble directory's map too.
+    png = tmp_path / "energy.png"
+    assert main(["plot", str(tmp_path / "scan"), "-o", str(png), "--value", "energy_error"]) == 0
+    assert png.read_bytes()[:4] == b"\x89PNG"
     # Running again resumes nothing and succeeds; a missing [ensemble] table is a usage error.
     assert main(["ensemble", str(tmp_path / "scan"), "--sequential", "--no-progress"]) == 0
     plain = tmp_path / "plain.toml"

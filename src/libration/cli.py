@@ -65,6 +65,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_commands(commands)  # run, resume, info, plot
 
+    from .ensemble import extend_plot_command
+
+    extend_plot_command(commands)  # `libration plot ENSEMBLE_DIR` draws its stability map
+
     bench = commands.add_parser("bench", help="quick throughput benchmark of the gravity kernel")
     bench.set_defaults(func=_cmd_bench)
 

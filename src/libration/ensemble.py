@@ -38,7 +38,6 @@ import itertools
 import json
 import math
 import os
-import re
 import socket
 import time as _time
 import warnings
@@ -169,6 +168,11 @@ def _split_parameter(name: str) -> tuple[str, str]:
     return body, field
 
 
+def _some_names(names: Sequence[str], limit: int = 12) -> str:
+    shown = ", ".join(names[:limit])
+    return shown if len(names) <= limit else f"{shown}, ... ({len(names)} bodies)"
+
+
 def _body_index(system: System, body: str, parameter: str) -> int:
     if body in system.names:
         return system.names.index(body)
@@ -178,7 +182,7 @@ def _body_index(system: System, body: str, parameter: str) -> int:
         index = -1
     if not 0 <= index < system.n:
         raise ValidationError(f"parameter {parameter!r}: no body named or numbered {body!r}; the bodies "
-                              f"are {', '.join(system.names)}")
+                              f"are {_some_names(system.names)}")
     return index
 
 
@@ -895,7 +899,7 @@ class Ensemble:
         track = [str(name) for name in track]
         for name in track:
             if name not in probe.names:
-                raise ValidationError(f"track: no body named {name!r}; the bodies are {', '.join(probe.names)}")
+                raise ValidationError(f"track: no body named {name!r}; the bodies are {_some_names(probe.names)}")
         if not 0 <= int(primary) < probe.n_active:
             raise ValidationError(f"primary must index a massive body, 0..{probe.n_active - 1}, got {primary!r}")
         self.track = track
@@ -1434,27 +1438,6 @@ def ensemble_options(table: Mapping[str, Any], where: str = "[ensemble]") -> dic
     return options
 
 
-_TABLE_HEADER = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
-
-
-def split_scenario_text(text: str) -> tuple[str, str]:
-    """Split scenario text into (the scenario without its ensemble tables, those tables).
-
-    Lines of ``[ensemble]`` and ``[ensemble.*]`` tables are blanked (not removed) in the
-    first part, so line numbers in the scenario reader's messages stay right.
-    """
-    kept, taken = [], []
-    inside = False
-    for line in text.splitlines():
-        header = _TABLE_HEADER.match(line)
-        if header:
-            name = header.group(1).strip().strip('"')
-            inside = name == "ensemble" or name.startswith("ensemble.")
-        (taken if inside else kept).append(line)
-        (kept if inside else taken).append("")
-    return "\n".join(kept) + "\n", "\n".join(taken) + "\n"
-
-
 def ensemble_from_scenario(path: str | os.PathLike, directory: str | os.PathLike | None = None
                            ) -> tuple[Ensemble, int | None]:
     """Build the :class:`Ensemble` described by a scenario file with an ``[ensemble]`` table.
@@ -1478,16 +1461,11 @@ def ensemble_from_scenario(path: str | os.PathLike, directory: str | os.PathLike
         raise ScenarioError(f"cannot read scenario file {path}: {exc.strerror or exc}") from None
     except UnicodeDecodeError:
         raise ScenarioError(f"{path}: not UTF-8 text; a scenario is a TOML text file") from None
-    rest, ensemble_text = split_scenario_text(text)
-    try:
-        document = tomllib.loads(ensemble_text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ScenarioError(f"{path}: the [ensemble] table is not valid TOML: {exc}") from None
-    if "ensemble" not in document:
+    loaded = scenario_module.parse(text, path, os.path.dirname(os.path.abspath(path)))  # checks the TOML
+    table = tomllib.loads(text).get("ensemble")
+    if table is None:
         raise ScenarioError(f"{path} has no [ensemble] table; add one to run the scenario as an ensemble")
-    table = document["ensemble"]
     options = ensemble_options(table)
-    loaded = scenario_module.parse(rest, path, os.path.dirname(os.path.abspath(path)))
     base = loaded.system()
     options.setdefault("until", loaded.until)
     if options["until"] is None:
@@ -1651,3 +1629,25 @@ def plot_cli(path: str | os.PathLike, output: str | os.PathLike | None = None, x
     if os.path.isdir(path) and os.path.exists(os.path.join(path, MANIFEST)) or os.path.basename(path) == MANIFEST:
         return plot_path(path, x, y, value, output)
     return None
+
+
+def extend_plot_command(commands) -> None:
+    """Let ``libration plot`` also draw the stability map of an ensemble directory (or of its
+    ``ensemble.json`` / ``summary.csv``); other files go to the plot command as before."""
+    plot = commands.choices.get("plot")
+    if plot is None:
+        return
+    original = plot.get_default("func")
+    plot.add_argument("--x", default=None, help="ensemble maps: parameter on the x axis (default the first)")
+    plot.add_argument("--y", default=None, help="ensemble maps: parameter on the y axis (default the second)")
+    plot.add_argument("--value", default="first_encounter_time",
+                      help="ensemble maps: result column drawn (default first_encounter_time)")
+
+    def plot_or_map(args) -> int:
+        drawn = plot_cli(args.file, getattr(args, "output", None), args.x, args.y, args.value)
+        if drawn is None:
+            return original(args)
+        print(f"map: {drawn}")
+        return 0
+
+    plot.set_defaults(func=plot_or_map)
