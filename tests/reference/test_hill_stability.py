@@ -6,8 +6,10 @@ M, the pair is Hill stable (close approaches are impossible for all time) when t
 separation exceeds Delta_c = 2 * 3**0.5 mutual Hill radii, with the mutual Hill radius
 R_H = ((m1 + m2) / (3 M))**(1/3) * (a1 + a2) / 2 (Gladman 1993, the circular-orbit limit of
 his Hill-stability criterion; the value 2 * sqrt(3) ~ 3.46 is from memory of that paper).
-Inside the boundary the planets meet promptly, within tens of synodic periods, which is what
-the ensemble scan below looks for.
+Gladman's integrations found the boundary sharp for initially circular orbits: pairs just
+inside it soon had close approaches (from memory of the same paper).  The scan below asks
+for that: a close approach within 300 inner orbits for every separation inside the boundary,
+none outside it, so the numerical boundary falls where Gladman puts it, within one grid step.
 
 The planets are invented (masses 5e-5 and 3e-5 of the star, "light planets").  A close
 encounter is a separation below 2 mutual Hill radii (common practice: encounter checks at a
