@@ -663,9 +663,9 @@ class SequentialExecutor(cf.Executor):
         future: cf.Future = cf.Future()
         try:
             future.set_result(fn(*args, **kwargs))
-        except BaseException as exc:  # noqa: BLE001 - handed to the caller through the future
+        except Exception as exc:  # noqa: BLE001 - handed to the caller through the future
             future.set_exception(exc)
-        return future
+        return future  # (KeyboardInterrupt and SystemExit propagate at once)
 
 
 def _cores() -> int:
