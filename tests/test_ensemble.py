@@ -235,6 +235,7 @@ def test_results_files_and_reopening(tmp_path):
     column = header.index("energy_error")
     assert float(first[column]) == table["energy_error"][0]  # written exactly
     h5py = pytest.importorskip("h5py")
+    assert os.path.exists(os.path.join(ensemble.directory, "summary.h5"))  # written by run()
     with h5py.File(ensemble.to_hdf5(), "r") as fh:
         stored = fh["summary"][()]
     assert np.array_equal(stored["energy_error"], table["energy_error"])

@@ -11,7 +11,7 @@ the client itself).
 Files (the ensemble directory)::
 
     ensemble.json           manifest: definition, fingerprint, one entry per member
-    summary.csv             one row per member (rewritten at the end of each run)
+    summary.csv, summary.h5 one row per member (rewritten at the end of each run)
     members/00012/state.ckpt    the member's checkpoint (libration checkpoint format)
     members/00012/summary.json  written when the member has finished (or stopped)
     members/00012/failure.json  written when the member has failed, with the message
@@ -1080,6 +1080,10 @@ class Ensemble:
         self._write_manifest(records)
         table = self.results(records)
         self.to_csv(os.path.join(self.directory, "summary.csv"), table)
+        try:
+            self.to_hdf5(os.path.join(self.directory, "summary.h5"), table)
+        except ImportError:  # pragma: no cover - h5py missing: the CSV is the summary
+            pass
         if lost:
             first = lost[0][1]
             warnings.warn(f"{len(lost)} member(s) were lost with their worker (first: {first}); they are "
@@ -1139,14 +1143,14 @@ class Ensemble:
         os.replace(tmp, path)
         return path
 
-    def to_hdf5(self, path: str | os.PathLike | None = None) -> str:
+    def to_hdf5(self, path: str | os.PathLike | None = None, table: np.ndarray | None = None) -> str:
         """Write :meth:`results` to HDF5 (dataset ``summary``; needs h5py); return the path."""
         try:
             import h5py
-        except ImportError as exc:  # pragma: no cover - h5py is a dependency of the io extra
+        except ImportError as exc:  # pragma: no cover - h5py is a dependency of libration
             raise ImportError("to_hdf5 needs h5py (pip install h5py); to_csv works without it") from exc
         path = os.fspath(path) if path is not None else os.path.join(self.directory, "summary.h5")
-        table = self.results()
+        table = self.results() if table is None else table
         # HDF5 has no fixed-width unicode: store the strings as UTF-8 bytes.
         # (a U<k> field holds 4 k bytes: room for k characters of up to 4 UTF-8 bytes each).
         dtype = [(name, f"S{table.dtype[name].itemsize}" if table.dtype[name].kind == "U"
