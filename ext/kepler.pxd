@@ -15,7 +15,7 @@
 # if a body still fails, its index is reported and its state is left untouched -- never a silent
 # NaN.
 
-from libc.math cimport fabs, sqrt, rint, isfinite, sin, cos, sinh, cosh, atan2, asinh, log, M_PI, INFINITY
+from libc.math cimport fabs, sqrt, rint, isfinite, sin, cos, sinh, cosh, atan2, asinh, log, M_PI, INFINITY, NAN
 
 cdef enum:
     KEPLER_BLOCK = 8                 # bodies solved together in lockstep
@@ -142,17 +142,23 @@ cdef inline int lb_kepler_bracket(double r0, double eta, double zeta, double bet
     cdef double width, f, g1, g2, g3, side
     cdef int it
     side = 1.0 if dt > 0.0 else -1.0
+    cdef double inside = 0.0
     if beta > 0.0:
         width = 2.0 * M_PI / sqrt(beta)
     else:
+        # grow from |dt| / r0 until t(s) passes dt; a non-finite t (overflow of the hyperbolic
+        # functions) lies beyond the root, so the width is pulled back towards the last finite
+        # point inside instead
         width = fabs(dt) / r0
-        for it in range(2100):
+        for it in range(4200):
             lb_kepler_g(beta, side * width, &g1, &g2, &g3)
             f = r0 * side * width + eta * g2 + zeta * g3 - dt
             if not isfinite(f):
-                return 1
+                width = 0.5 * (inside + width)
+                continue
             if (f >= 0.0) == (dt > 0.0):
                 break
+            inside = width
             width *= 2.0
         else:
             return 1
@@ -177,7 +183,8 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
     equivalent in order to Danby's 1988 eq. 6.6.7) from the series guess; a body is done
     when the residual |t(s) - dt| is below 1e-15 of the size of the terms of t(s) (about four
     rounding units) and the Newton correction |t(s) - dt| / r is below 1e-15 |s| (near pericentre
-    r is small and the first test alone would be loose), or when a step no longer changes s; the
+    r is small and the first test alone would be loose), or when a step changes s by about an
+    ulp or less (the rounding of t(s) allows no better); the
     G functions of that last evaluation give f and g.  A planetary step needs two evaluations.  Every step is kept inside
     a bracket of the root (t is increasing, so the sign of the residual moves one end); a step
     that would leave it is replaced by bisection, so the iteration converges from any start.
@@ -231,6 +238,13 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
             else:
                 lo[k] = -INFINITY
                 hi[k] = 0.0
+            if beta[k] <= 0.0 and tau[k] != 0.0:
+                # unbound orbit: t(s) grows exponentially, where an overshooting step recovers
+                # only slowly, so the proven bracket is set up front (elliptic orbits get it
+                # only if a step leaves the side bounds)
+                hard[k] = 1
+                if lb_kepler_bracket(r0[k], eta[k], zeta[k], beta[k], tau[k], &lo[k], &hi[k]) != 0:
+                    return i
             s[k] = lb_kepler_guess(mu, r0[k], inv_r0[k], eta[k], zeta[k], beta[k], tau[k])
             active[k] = 1
             if tau[k] == 0.0:
@@ -249,29 +263,38 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
                 lb_kepler_g(beta[k], s[k], &g1, &g2, &g3)
                 f = r0[k] * s[k] + eta[k] * g2 + zeta[k] * g3 - tau[k]
                 f1 = r0[k] + eta[k] * g1 + zeta[k] * g2
-                scale = fabs(r0[k] * s[k]) + fabs(eta[k] * g2) + fabs(zeta[k] * g3) + fabs(tau[k])
-                if fabs(f) <= 1e-15 * scale and fabs(f) <= 1e-15 * fabs(f1 * s[k]):
-                    G1[k] = g1
-                    G2[k] = g2
-                    G3[k] = g3
-                    rr[k] = f1
-                    active[k] = 0
-                    continue
-                if f < 0.0:
-                    lo[k] = s[k]
+                if not (isfinite(f) and isfinite(f1)):
+                    # overflow of the hyperbolic functions: s lies beyond the root
+                    if tau[k] > 0.0:
+                        hi[k] = s[k]
+                    else:
+                        lo[k] = s[k]
+                    cand = NAN       # forces the bracketed bisection below
                 else:
-                    hi[k] = s[k]
-                f2 = eta[k] * (1.0 - beta[k] * g2) + zeta[k] * g1
-                f3 = zeta[k] * (1.0 - beta[k] * g2) - beta[k] * eta[k] * g1
-                # fourth-order step from the reverted Taylor series of t(s): with the Newton
-                # step e = -f / f1, a2 = f2 / (2 f1), a3 = f3 / (6 f1), the root is at
-                # e - a2 e^2 + (2 a2^2 - a3) e^3 + O(e^4); one division
-                inv = 1.0 / f1
-                d1 = -f * inv
-                a2 = 0.5 * f2 * inv
-                a3 = f3 * inv * (1.0 / 6.0)
-                step = d1 * (1.0 - d1 * (a2 - d1 * (2.0 * a2 * a2 - a3)))
-                cand = s[k] + step
+                    scale = (fabs(r0[k] * s[k]) + fabs(eta[k] * g2) + fabs(zeta[k] * g3)
+                             + fabs(tau[k]))
+                    if fabs(f) <= 1e-15 * scale and fabs(f) <= 1e-15 * fabs(f1 * s[k]):
+                        G1[k] = g1
+                        G2[k] = g2
+                        G3[k] = g3
+                        rr[k] = f1
+                        active[k] = 0
+                        continue
+                    if f < 0.0:
+                        lo[k] = s[k]
+                    else:
+                        hi[k] = s[k]
+                    f2 = eta[k] * (1.0 - beta[k] * g2) + zeta[k] * g1
+                    f3 = zeta[k] * (1.0 - beta[k] * g2) - beta[k] * eta[k] * g1
+                    # fourth-order step from the reverted Taylor series of t(s): with the Newton
+                    # step e = -f / f1, a2 = f2 / (2 f1), a3 = f3 / (6 f1), the root is at
+                    # e - a2 e^2 + (2 a2^2 - a3) e^3 + O(e^4); one division
+                    inv = 1.0 / f1
+                    d1 = -f * inv
+                    a2 = 0.5 * f2 * inv
+                    a3 = f3 * inv * (1.0 / 6.0)
+                    step = d1 * (1.0 - d1 * (a2 - d1 * (2.0 * a2 * a2 - a3)))
+                    cand = s[k] + step
                 if not (lo[k] < cand < hi[k]):
                     if not hard[k]:
                         # first escape: add the proven bracket of the root
@@ -285,9 +308,12 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
                             hi[k] = bhi
                     if not (lo[k] < cand < hi[k]):
                         cand = 0.5 * (lo[k] + hi[k])
-                if cand == s[k]:
-                    # the residual cannot be reduced further in floating point: take the last
-                    # evaluation (it is within rounding of the root)
+                if fabs(cand - s[k]) <= 2.5e-16 * fabs(s[k]):
+                    if not (isfinite(f) and isfinite(f1)):
+                        return start + k
+                    # the correction is below what the rounding of t(s) can resolve (near a
+                    # close pericentre, where r = t'(s) is small): take the last evaluation, it
+                    # is within rounding of the root
                     G1[k] = g1
                     G2[k] = g2
                     G3[k] = g3
@@ -308,7 +334,8 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
             gg = tau[k] - mu * G3[k]
             fdot = -mu * G1[k] * inv_r0[k] * inv_r
             gdotm1 = -mu * G2[k] * inv_r
-            if not (isfinite(inv_r) and isfinite(gg) and isfinite(fdot) and rr[k] > 0.0):
+            if not (isfinite(inv_r) and isfinite(fm1) and isfinite(gg) and isfinite(fdot)
+                    and isfinite(gdotm1) and rr[k] > 0.0):
                 return i
             x = position[3 * i]
             y = position[3 * i + 1]
