@@ -97,7 +97,28 @@ def _corrector_sequence(order: int) -> list[tuple[str, float]]:
 
 @register
 class WisdomHolman(Integrator):
-    """Wisdom–Holman map (second order), democratic heliocentric or Jacobi; see module doc."""
+    """Wisdom–Holman map (second order), democratic heliocentric or Jacobi; see module doc.
+
+    Parameters
+    ----------
+    mass, position, velocity, n_active, G, step, threads, radius, events
+        As for :class:`~libration.methods.Integrator`; ``step`` in the time unit (negative
+        integrates backward).  Body 0 is the central mass (> 0); test particles (indices
+        >= n_active) ride along.
+    coordinates : {"democratic-heliocentric", "jacobi"}
+        The splitting (default democratic heliocentric).
+    corrector : {0, 3, 5, 7, 9, 11}
+        Symplectic corrector order for ``coordinates="jacobi"`` (0 = off, the default).
+
+    Notes
+    -----
+    ``softening`` must be 0 (the Kepler part is exact point-mass motion).  The base class's
+    ``position`` and ``velocity`` attributes keep the input state; the evolving state lives in
+    the kernel arrays and is read with :meth:`state`.  A Kepler drift that cannot be solved
+    (a non-finite state, or an orbit through the central body) ends the call with status
+    ``STATUS_NO_CONVERGENCE`` naming the body and its state; a zero distance between massive
+    bodies ends it with ``STATUS_SINGULAR``.
+    """
 
     name = "wisdom-holman"
     order = 2
