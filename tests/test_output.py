@@ -253,3 +253,18 @@ def test_run_with_events_logs_them_and_keeps_columns(tmp_path):
     assert [e["kind"] for e in out.event_log] == [e["kind"] for e in p.event_log]
     assert np.isnan(out.mass[-1, 1:3]).all() and out.mass[-1, 0] == pytest.approx(1.002)
     assert not np.isnan(out.mass[0]).any()
+
+
+def test_flipped_byte_in_the_data_is_refused(tmp_path):
+    path = tmp_path / "flip.h5"
+    lb.Propagator(_system(3), "leapfrog", step=0.01).run(1.0, output=path, every=0.1)
+    with h5py.File(path, "r") as f:
+        offset = f["snapshots/position"].id.get_chunk_info(0).byte_offset
+    data = bytearray(path.read_bytes())
+    data[offset + 40] ^= 0x01
+    path.write_bytes(bytes(data))
+    with pytest.raises(FileFormatError, match="damaged"):
+        open_output(path)
+    with pytest.raises(FileFormatError, match="damaged and cannot be continued"):
+        OutputWriter.reopen(str(path), 5)
+    assert not os.path.exists(str(path) + ".rebuild")

@@ -48,6 +48,8 @@ FORMAT_VERSION = 1
 ELEMENT_NAMES = ("semi_major_axis", "eccentricity", "inclination", "ascending_node",
                  "argument_of_periapsis", "mean_anomaly")
 _BUFFER_BYTES = 4 << 20  # snapshots held before a write: bounded, independent of the span
+_CACHE_BYTES = 16 << 20  # HDF5 chunk cache: holds every chunk a buffered write touches
+_CHECKSUMS = True  # Fletcher-32 per chunk: a damaged byte in the data is refused when read
 
 
 def _h5py():
@@ -56,6 +58,11 @@ def _h5py():
     except ImportError as exc:  # pragma: no cover - h5py is a hard dependency
         raise ImportError("HDF5 output needs h5py: pip install h5py") from exc
     return h5py
+
+
+def _chunk_rows(n: int) -> int:
+    """Snapshots per HDF5 chunk of the per-body datasets (chunks of at most 256 KiB)."""
+    return int(max(1, min(1024, (256 << 10) // max(1, 24 * n))))
 
 
 def _row_datasets(n: int, elements: bool) -> dict[str, tuple[tuple[int, ...], str]]:
@@ -106,16 +113,18 @@ class OutputWriter:
         self.elements = elements_primary is not None
         self._rows = _row_datasets(self.n, self.elements)
         if _append:
-            self.file = h5py.File(self.path, "r+", libver="latest")
+            self.file = h5py.File(self.path, "r+", libver="latest", rdcc_nbytes=_CACHE_BYTES)
             self.written = int(self.file["snapshots/time"].shape[0])
         else:
-            self.file = h5py.File(self.path, "w", libver="latest")
+            self.file = h5py.File(self.path, "w", libver="latest", rdcc_nbytes=_CACHE_BYTES)
             self._create(radius, attrs, scenario_text, elements_primary)
             self.written = 0
         self.file.swmr_mode = True
         self._datasets = {key: self.file[key] for key in self._rows}
         row_bytes = sum(8 * int(np.prod(shape, dtype=np.int64)) for shape, _ in self._rows.values())
-        self.capacity = int(max(1, min(4096, _BUFFER_BYTES // max(row_bytes, 1))))
+        # A whole number of chunks per write: no chunk is written twice (no read-modify-write).
+        rows = _chunk_rows(self.n)
+        self.capacity = int(max(1, min(4096, _BUFFER_BYTES // max(row_bytes, 1)) // rows)) * rows
         self._buffer = {key: np.empty((self.capacity,) + shape, dtype) for key, (shape, dtype) in self._rows.items()}
         self._buffered = 0
         self._column = {name: i for i, name in enumerate(self.names)}
@@ -135,11 +144,10 @@ class OutputWriter:
         f.create_dataset("scenario", data=scenario_text or "", dtype=text)
         f.create_dataset("bodies/names", data=np.array(self.names, dtype=object), dtype=text)
         f.create_dataset("bodies/radius", data=np.asarray(radius, dtype=np.float64))
-        row_bytes_hint = max(1, 24 * self.n)
-        chunk_rows = int(max(1, min(1024, (1 << 20) // row_bytes_hint)))
+        chunk_rows = _chunk_rows(self.n)
         for key, (shape, dtype) in self._rows.items():
             f.create_dataset(key, shape=(0,) + shape, maxshape=(None,) + shape, dtype=dtype,
-                             chunks=(chunk_rows if shape else 1024,) + shape)
+                             chunks=(chunk_rows if shape else 1024,) + shape, fletcher32=_CHECKSUMS)
         if elements_primary is not None:
             f["elements"].attrs["primary"] = elements_primary
             f["elements"].attrs["angle_unit"] = "radian"
@@ -249,13 +257,22 @@ class OutputWriter:
                         for key, value in source[group].attrs.items():
                             g.attrs[key] = value
                 for key, (shape, dtype) in rows.items():
+                    if key not in source:
+                        raise FileFormatError(f"output file {path} is damaged: dataset /{key} is missing")
                     src = source[key]
                     out = dest.create_dataset(key, shape=(cursor,) + shape, maxshape=(None,) + shape,
-                                              dtype=dtype, chunks=src.chunks)
+                                              dtype=dtype, chunks=src.chunks, fletcher32=_CHECKSUMS)
                     block = max(1, src.chunks[0] * 8)
                     for start in range(0, cursor, block):
                         stop = min(cursor, start + block)
                         out[start:stop] = src[start:stop]
+        except (OSError, KeyError, ValueError) as exc:
+            if isinstance(exc, FileFormatError):
+                raise
+            if os.path.exists(path + ".rebuild"):
+                os.remove(path + ".rebuild")
+            raise FileFormatError(f"output file {path} is damaged and cannot be continued ({exc}); "
+                                  "restore it from a backup, or start the run again") from None
         finally:
             source.close()
         os.replace(tmp, path)
