@@ -34,7 +34,6 @@ sys.path.insert(0, HERE)
 from _machine import _build_flags, describe_machine  # noqa: E402
 
 import libration as lb  # noqa: E402
-from libration import _wisdom_holman  # noqa: E402
 from libration.units import UnitSystem  # noqa: E402
 
 # Hairer, Lubich & Wanner, Geometric Numerical Integration (2006), Sec. I.2.4 (from memory; the

@@ -37,7 +37,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from . import _gravity, _wisdom_holman
+from . import _wisdom_holman
 from .exceptions import ConvergenceError, MethodError, SingularityError
 from .methods import (STATUS_NO_CONVERGENCE, STATUS_OK, STATUS_SINGULAR, Integrator, StepReport,
                       register)
@@ -201,10 +201,9 @@ class WisdomHolman(Integrator):
                                    f"while synchronising the wisdom-holman state")
 
     def _drift(self, q: np.ndarray, p: np.ndarray, dt: float) -> None:
-        state = (q[:].copy(), p[:].copy())
         bad = _wisdom_holman.jacobi_drift(q, p, self._gm, dt)
-        if bad >= 0:
-            raise ConvergenceError(self._kepler_message(bad, state[0][bad], state[1][bad], dt))
+        if bad >= 0:   # the failing body's state is left as it was before the drift
+            raise ConvergenceError(self._kepler_message(bad, q[bad], p[bad], dt))
 
     def _kepler_message(self, body: int, position, velocity, dt: float) -> str:
         frame = "Jacobi" if self._jacobi else "heliocentric position, barycentric velocity"
