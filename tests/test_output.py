@@ -268,3 +268,24 @@ def test_flipped_byte_in_the_data_is_refused(tmp_path):
     with pytest.raises(FileFormatError, match="damaged and cannot be continued"):
         OutputWriter.reopen(str(path), 5)
     assert not os.path.exists(str(path) + ".rebuild")
+
+
+def test_moved_run_resumes_from_its_new_directory(tmp_path):
+    first, second = tmp_path / "cluster", tmp_path / "laptop"
+    first.mkdir()
+    p = lb.Propagator(_system(2), "leapfrog", step=0.01)
+    p.run(0.5, output=first / "m.h5", every=0.1, checkpoint=first / "m.ckpt")
+    first.rename(second)
+    result = lb.io.resume(second / "m.ckpt", until=1.0)
+    assert result.output == str(second / "m.h5") and result.checkpoint == str(second / "m.ckpt")
+    assert len(open_output(second / "m.h5")) == 11
+
+
+def test_plot_without_matplotlib_says_how_to_install(tmp_path, monkeypatch, capsys):
+    from libration.cli import main
+
+    path = tmp_path / "x.h5"
+    lb.Propagator(_system(1), "leapfrog", step=0.01).run(0.1, output=path, every=0.05)
+    monkeypatch.setitem(sys.modules, "matplotlib", None)  # as if the extra were not installed
+    assert main(["plot", str(path)]) == 2
+    assert "pip install 'libration[plot]'" in capsys.readouterr().err

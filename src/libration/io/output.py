@@ -48,7 +48,6 @@ FORMAT_VERSION = 1
 ELEMENT_NAMES = ("semi_major_axis", "eccentricity", "inclination", "ascending_node",
                  "argument_of_periapsis", "mean_anomaly")
 _BUFFER_BYTES = 4 << 20  # snapshots held before a write: bounded, independent of the span
-_CACHE_BYTES = 16 << 20  # HDF5 chunk cache: holds every chunk a buffered write touches
 _CHECKSUMS = True  # Fletcher-32 per chunk: a damaged byte in the data is refused when read
 
 
@@ -113,10 +112,10 @@ class OutputWriter:
         self.elements = elements_primary is not None
         self._rows = _row_datasets(self.n, self.elements)
         if _append:
-            self.file = h5py.File(self.path, "r+", libver="latest", rdcc_nbytes=_CACHE_BYTES)
+            self.file = h5py.File(self.path, "r+", libver="latest")
             self.written = int(self.file["snapshots/time"].shape[0])
         else:
-            self.file = h5py.File(self.path, "w", libver="latest", rdcc_nbytes=_CACHE_BYTES)
+            self.file = h5py.File(self.path, "w", libver="latest")
             self._create(radius, attrs, scenario_text, elements_primary)
             self.written = 0
         self.file.swmr_mode = True

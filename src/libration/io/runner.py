@@ -445,8 +445,14 @@ def resume(path: str | os.PathLike, *, until: float | None = None, progress: boo
         if (until - propagator.time) * state["direction"] < 0:
             raise ValidationError(f"until = {until!r} lies behind the checkpoint's time {propagator.time!r}")
         state["until"] = until
-    if state["checkpoint"] is None or not os.path.isdir(os.path.dirname(state["checkpoint"])):
-        state["checkpoint"] = os.path.abspath(os.fspath(path))
+    # Continue in the checkpoint's own place (the run's files may have been moved together to
+    # another directory or machine); resuming from NAME.prev writes NAME again.
+    checkpoint = os.path.abspath(os.fspath(path))
+    state["checkpoint"] = checkpoint[:-len(".prev")] if checkpoint.endswith(".prev") else checkpoint
+    if state["output"] is not None:
+        beside = os.path.join(os.path.dirname(checkpoint), os.path.basename(state["output"]))
+        if os.path.exists(beside):
+            state["output"] = beside
     if state["output"] is not None and not os.path.exists(state["output"]):
         raise FileFormatError(f"the output file {state['output']} named in checkpoint {os.fspath(path)} "
                               "is missing; restore it (the run appends to it) and resume again")
