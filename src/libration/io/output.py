@@ -27,7 +27,8 @@ start of the run::
     /events/log             scalar UTF-8 JSON: the propagator's event log (written on close)
 
 The file is written in HDF5 single-writer/multiple-reader mode, so it stays readable while a
-run writes it and after a run is killed.  ``len(/snapshots/time)`` is the number of complete
+run writes it and after a run is killed.  The snapshot datasets carry a Fletcher-32 checksum
+per chunk (HDF5's metadata has its own), so damaged data is refused when read.  ``len(/snapshots/time)`` is the number of complete
 snapshots: within each chunk it is extended last.
 """
 from __future__ import annotations
