@@ -17,7 +17,7 @@ Method, all in one invocation:
   that reports its peak resident set size (ru_maxrss) and the peak of Python/numpy
   allocations traced by tracemalloc during the run (numpy registers its buffers with it).
 
-Usage: python bench/longrun.py [--particles 3000] [--steps 20000] [--repeats 3]
+Usage: python bench/longrun.py [--particles 3000] [--steps 40000] [--repeats 3]   (about 2 minutes)
 Writes bench/results/longrun.json.
 """
 from __future__ import annotations
@@ -87,8 +87,8 @@ def time_once(system, steps: int, with_files: bool, directory: str) -> tuple[flo
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--particles", type=int, default=3000)
-    parser.add_argument("--steps", type=int, default=20000)
-    parser.add_argument("--repeats", type=int, default=5)
+    parser.add_argument("--steps", type=int, default=40000)
+    parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--output", default=str(pathlib.Path(__file__).parent / "results" / "longrun.json"))
     args = parser.parse_args()
 

@@ -289,3 +289,21 @@ def test_plot_without_matplotlib_says_how_to_install(tmp_path, monkeypatch, caps
     monkeypatch.setitem(sys.modules, "matplotlib", None)  # as if the extra were not installed
     assert main(["plot", str(path)]) == 2
     assert "pip install 'libration[plot]'" in capsys.readouterr().err
+
+
+def test_progress_bar_on_a_terminal_only(tmp_path, monkeypatch, capsys):
+    import io
+
+    p = lb.Propagator(_system(2), "leapfrog", step=0.01)
+    p.run(0.5, output=tmp_path / "q.h5", every=0.1, progress=True)
+    assert capsys.readouterr().err == ""  # not a terminal (a log file): quiet
+
+    class Terminal(io.StringIO):
+        def isatty(self) -> bool:
+            return True
+
+    screen = Terminal()
+    monkeypatch.setattr(sys, "stderr", screen)
+    p.run(1.0, output=tmp_path / "r.h5", every=0.1, progress=True)
+    text = screen.getvalue()
+    assert "100%" in text and "steps/s" in text and "dE/E" in text and "time unit" in text
