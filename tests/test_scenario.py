@@ -124,6 +124,8 @@ MALFORMED = [
     ("checkpoint without file", _edit(41, None), r"line 40: \[checkpoint\] sets 'interval' or 'steps' but no 'file'"),
     ("no state", _edit(9, None).replace("velocity = [0.0, 0.0, 0.0]\n", ""),
      r"line 6: \[\[body\]\] #1 \('sun'\) has no 'position'"),
+    ("inclination beyond pi", _edit(18, "inclination = 4.0"),
+     r"line 18: \[\[body\]\] #2 key 'inclination' must be <= 3.14159, got 4.0"),
     ("no bodies", '[integrator]\nmethod = "leapfrog"\nstep = 1.0\n', r"no bodies: add at least one \[\[body\]\]"),
 ]
 
@@ -147,6 +149,13 @@ def test_drawn_unbound_particle_is_refused_with_the_population_line():
     with pytest.raises(ScenarioError, match=r"line 20: \[\[population\]\] 'ring': particle 0 drew a "
                                             r"semi-major axis whose sign does not match"):
         scenario.system()
+
+
+def test_drawn_inclination_outside_its_range_is_refused():
+    text = _edit(27, 'mean_anomaly = 0.0\ninclination = { distribution = "normal", mean = 0.0, sd = 0.1 }')
+    with pytest.raises(ScenarioError, match=r"line 20: \[\[population\]\] 'ring': particle \d+ drew an "
+                                            r"inclination outside \[0, 180\] degrees \(-"):
+        sc.parse(text, "bad.toml").system()
 
 
 def test_unreadable_files(tmp_path):
@@ -221,3 +230,32 @@ def test_demo_scenario_parses_into_the_invented_system():
     assert np.degrees(elements.inclination[4:]).max() <= 8.6 + 1e-9
     assert re.search(r"\[\[population\]\]", sc.demo_text())
     assert scenario.method in lb.METHODS
+
+
+# --- property-based: any edit of a valid scenario is either accepted or refused clearly --------
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_VALUES = st.one_of(st.integers(-5, 5), st.floats(allow_nan=True, allow_infinity=True), st.booleans(),
+                    st.sampled_from(['"sun"', '"x"', '""', "[1.0, 2.0]", "[]", "{ distribution = \"uniform\" }",
+                                     "{}", '"uniform"', "[1, 2, 3]", "1e400"]))
+
+
+@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(st.tuples(st.integers(1, 42), st.one_of(st.none(), _VALUES)), min_size=1, max_size=3))
+def test_edited_scenarios_parse_or_fail_with_a_scenario_error(edits):
+    lines = BASE.splitlines()
+    for line, value in edits:
+        i = (line - 1) % len(lines)
+        if value is None:
+            lines[i] = ""  # a deleted line
+        elif "=" in lines[i]:
+            key = lines[i].split("=", 1)[0]
+            text = value if isinstance(value, str) else (repr(value).lower() if isinstance(value, bool)
+                                                          else repr(value))
+            lines[i] = f"{key}= {text.replace('inf', '1e400').replace('nan', 'nan')}"
+    try:
+        scenario = sc.parse("\n".join(lines) + "\n", "edited.toml")
+        scenario.system()
+    except ScenarioError as exc:
+        assert str(exc).startswith("edited.toml")

@@ -49,7 +49,7 @@ from typing import Any
 
 import numpy as np
 
-from .exceptions import LibrationError, ScenarioError
+from .exceptions import LibrationError, ScenarioError, ValidationError
 from .system import System
 from .units import UNIT_SYSTEMS, get_units
 
@@ -203,7 +203,10 @@ class Scenario:
                 for j, name in enumerate(ELEMENTS):
                     if name in _ANGLES:
                         values[j] *= scale
-                r, v = _relative_state(mu, *(np.array([x]) for x in values))
+                try:
+                    r, v = _relative_state(mu, *(np.array([x]) for x in values))
+                except ValidationError as exc:
+                    raise self._error(("body", i), f"[[body]] #{i + 1} ({body['name']!r}): {exc}") from None
                 pos, vel = position[p] + r[0], velocity[p] + v[0]
             else:
                 pos, vel = np.array(body["position"], float), np.array(body["velocity"], float)
@@ -230,7 +233,10 @@ class Scenario:
                 raise self._error(("population", k), f"[[population]] {pop.name!r}: particle {j} drew "
                                   f"{message}; narrow the distribution")
             p = index[pop.primary]
-            r, v = _relative_state(G * mass[p], *(drawn[name] for name in ELEMENTS))
+            try:
+                r, v = _relative_state(G * mass[p], *(drawn[name] for name in ELEMENTS))
+            except ValidationError as exc:
+                raise self._error(("population", k), f"[[population]] {pop.name!r}: {exc}") from None
             width = max(5, len(str(count - 1)))
             names.extend(f"{pop.name}{j:0{width}d}" for j in range(count))
             mass.extend([0.0] * count)
@@ -238,9 +244,12 @@ class Scenario:
             position.extend(position[p] + r)
             velocity.extend(velocity[p] + v)
         order = sorted(range(len(names)), key=lambda i: mass[i] == 0.0)  # massive first, stable
-        system = System(np.array([mass[i] for i in order]), np.array([position[i] for i in order]),
-                        np.array([velocity[i] for i in order]), self.units, [names[i] for i in order],
-                        np.array([radius[i] for i in order]))
+        try:
+            system = System(np.array([mass[i] for i in order]), np.array([position[i] for i in order]),
+                            np.array([velocity[i] for i in order]), self.units, [names[i] for i in order],
+                            np.array([radius[i] for i in order]))
+        except ValidationError as exc:
+            raise self._error(("body",), f"the bodies do not form a valid system: {exc}") from None
         return system.barycentric()
 
     def propagator(self, system: System | None = None):
@@ -445,7 +454,10 @@ class _Parser:
                 for key in ELEMENTS:
                     if key == "semi_major_axis" and key not in raw:
                         raise self.error(path, f"[[body]] #{i + 1} ({name!r}) needs 'semi_major_axis'")
-                    if key in raw:
+                    if key == "inclination" and key in raw:
+                        body[key] = self.number(raw[key], path + (key,), low=0.0,
+                                                high=180.0 if angle_unit == "degree" else math.pi)
+                    elif key in raw:
                         body[key] = self.number(raw[key], path + (key,))
                 self.check_orbit(body, path, f"[[body]] #{i + 1} ({name!r})")
             else:
@@ -632,14 +644,17 @@ def _draw(rng: np.random.Generator, spec: Any, count: int) -> np.ndarray:
 
 
 def _element_problem(drawn: dict[str, np.ndarray]) -> tuple[int, str] | None:
-    a, e = drawn["semi_major_axis"], drawn["eccentricity"]
-    checks = [(e < 0, "eccentricity < 0"), (e == 1, "eccentricity = 1 (parabolic)"),
+    a, e, inc = drawn["semi_major_axis"], drawn["eccentricity"], drawn["inclination"]
+    checks = [(~((inc >= 0) & (inc <= math.pi)), "an inclination outside [0, 180] degrees",
+               lambda j: f"{math.degrees(inc[j])!r} degrees"),
+              (e < 0, "eccentricity < 0", None), (e == 1, "eccentricity = 1 (parabolic)", None),
               ((e < 1) != (a > 0), "a semi-major axis whose sign does not match the eccentricity "
-                                   "(a > 0 needs e < 1, a < 0 needs e > 1)")]
-    for mask, text in checks:
+                                   "(a > 0 needs e < 1, a < 0 needs e > 1)", None)]
+    for mask, text, value in checks:
         if mask.any():
             j = int(np.flatnonzero(mask)[0])
-            return j, f"{text} (a = {a[j]!r}, e = {e[j]!r})"
+            got = value(j) if value else f"a = {a[j]!r}, e = {e[j]!r}"
+            return j, f"{text} ({got})"
     return None
 
 
