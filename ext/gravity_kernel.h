@@ -322,7 +322,7 @@ typedef struct {
 
 /* The variant to use on this CPU.  AVX2 is preferred to AVX-512 even where both
  * exist: the divider bounds the loop, and 512-bit sqrt/div cost more issue slots per
- * double on the Intel cores measured (bench/gravity.py, `--isa` shows every variant). */
+ * double on the Intel cores measured (bench/gravity.py times every variant). */
 static int lb_gravity_isa_best(void)
 {
 #if LB_DISPATCH
@@ -365,7 +365,7 @@ static lb_gravity_variant lb_gravity_variant_for(int isa)
 /* Fill acc (n x 3, row-major) with the accelerations of all n bodies from the
  * n_active massive ones, using the tile variant for instruction set isa (which the
  * caller has checked with lb_gravity_isa_available).  soa is scratch of 7 * n doubles
- * owned by the caller (4 * n are used).  Returns 0, or 1 with *bad set to the first
+ * owned by the caller (4 * n_active are used).  Returns 0, or 1 with *bad set to the first
  * body whose acceleration is not finite (it shares its position with a massive body,
  * or the input held a non-finite value). */
 static int lb_gravity_accelerations_isa(int isa, const double *position, const double *mass,
