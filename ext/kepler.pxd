@@ -11,7 +11,9 @@
 #
 # Speed: the bodies of a block are solved in lockstep (one Halley iteration for every unconverged
 # body, then the next iteration), so the long dependency chains of different bodies overlap in the
-# CPU.  Robustness: every step is kept inside a bracket of the root (bisection otherwise);
+# CPU.  Accuracy: an unbound arc that falls from far out to close to the centre (where t(s) is a
+# small difference of large terms) is done as two half drifts, recursively while needed.
+# Robustness: every step is kept inside a bracket of the root (bisection otherwise);
 # if a body still fails, its index is reported and its state is left untouched -- never a silent
 # NaN.
 
@@ -20,6 +22,7 @@ from libc.math cimport fabs, sqrt, rint, isfinite, sin, cos, sinh, cosh, atan2, 
 cdef enum:
     KEPLER_BLOCK = 8                 # bodies solved together in lockstep
     KEPLER_MAX_ITERATIONS = 200      # bracketed Halley/bisection iterations before giving up
+    KEPLER_MAX_SPLITS = 128          # half-drift splits of one ill-conditioned unbound drift
 
 
 
@@ -173,6 +176,14 @@ cdef inline int lb_kepler_bracket(double r0, double eta, double zeta, double bet
 
 cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stride, double* position,
                                             double* velocity, Py_ssize_t n, double dt) noexcept nogil:
+    """Advance n bodies (rows of 3 doubles) on their Kepler orbits about gm[i * gm_stride] by dt;
+    -1, or the index of the first body that failed (see lb_kepler_drift_depth)."""
+    return lb_kepler_drift_depth(gm, gm_stride, position, velocity, n, dt, NULL)
+
+
+cdef inline Py_ssize_t lb_kepler_drift_depth(const double* gm, Py_ssize_t gm_stride, double* position,
+                                             double* velocity, Py_ssize_t n, double dt,
+                                             int* budget) noexcept nogil:
     """Advance n bodies (rows of 3 doubles) on their Kepler orbits about gm[i * gm_stride] by dt.
 
     gm_stride = 0 uses one gm for all.  Returns -1, or the index of the first body whose Kepler
@@ -208,6 +219,8 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
     cdef int it, remaining
     cdef double x, y, z, vx, vy, vz, v2, mu, g1, g2, g3, f, f1, f2, f3, d1, a2, a3, inv, step, cand
     cdef double scale, inv_r, fm1, gg, fdot, gdotm1, blo, bhi
+    cdef int own_budget
+    cdef int* split_budget
     start = 0
     while start < n:
         nb = n - start
@@ -329,6 +342,27 @@ cdef inline Py_ssize_t lb_kepler_drift_many(const double* gm, Py_ssize_t gm_stri
             if active[k]:
                 return i
             mu = gm[i * gm_stride]
+            if (beta[k] < 0.0 and (budget == NULL or budget[0] > 0) and rr[k] < 0.01 * r0[k]
+                    and fabs(r0[k] * s[k]) + fabs(eta[k] * G2[k]) + fabs(zeta[k] * G3[k])
+                    > 1e2 * fabs(tau[k])):
+                # an unbound arc falling from far out to close to the centre, whose t(s) is a
+                # small difference of large terms: f and g would lose the digits t(s) loses.
+                # Two half drifts: the first has little cancellation, the second is split again
+                # while needed, so the error stays near one rounding of the largest distance.
+                # A budget of splits per body bounds the work whatever the orbit.
+                if budget == NULL:
+                    own_budget = KEPLER_MAX_SPLITS
+                    split_budget = &own_budget
+                else:
+                    split_budget = budget
+                split_budget[0] -= 1
+                if lb_kepler_drift_depth(&mu, 0, position + 3 * i, velocity + 3 * i, 1,
+                                         0.5 * tau[k], split_budget) >= 0:
+                    return i
+                if lb_kepler_drift_depth(&mu, 0, position + 3 * i, velocity + 3 * i, 1,
+                                         0.5 * tau[k], split_budget) >= 0:
+                    return i
+                continue
             inv_r = 1.0 / rr[k]
             fm1 = -mu * G2[k] * inv_r0[k]
             gg = tau[k] - mu * G3[k]
