@@ -307,3 +307,40 @@ def test_progress_bar_on_a_terminal_only(tmp_path, monkeypatch, capsys):
     p.run(1.0, output=tmp_path / "r.h5", every=0.1, progress=True)
     text = screen.getvalue()
     assert "100%" in text and "steps/s" in text and "dE/E" in text and "time unit" in text
+
+
+def test_random_damage_is_refused_or_harmless(tmp_path):
+    """Flipped bytes anywhere (half of them in the metadata at the start of the file): the
+    reader refuses the file or returns exactly the original data, never something else."""
+    import random
+
+    path = tmp_path / "fuzz.h5"
+    system = _system(2)
+    lb.Propagator(system, "leapfrog", step=0.01).run(0.5, output=path, every=0.1, elements=True,
+                                                     scenario_text="name = 'fuzz'")
+    good = path.read_bytes()
+    reference = open_output(path)
+    rng = random.Random(20261202)
+    damaged = tmp_path / "damaged.h5"
+    outcomes = {"refused": 0, "same": 0}
+    for _ in range(150):
+        data = bytearray(good)
+        for _ in range(rng.randint(1, 3)):
+            i = rng.randrange(len(data)) if rng.random() < 0.5 else rng.randrange(12_000)
+            data[i] ^= rng.randint(1, 255)
+        damaged.write_bytes(bytes(data))
+        try:
+            out = open_output(damaged)
+        except FileFormatError:
+            outcomes["refused"] += 1
+            continue
+        for name in ("time", "steps", "mass", "position", "velocity", "energy", "energy_error",
+                     "angular_momentum", "angular_momentum_error", "radius"):
+            assert np.array_equal(getattr(out, name), getattr(reference, name), equal_nan=True), name
+        for name in reference.elements:
+            assert np.array_equal(out.elements[name], reference.elements[name], equal_nan=True)
+        assert (out.names, out.scenario, out.event_log, out.complete) == \
+               (reference.names, reference.scenario, reference.event_log, reference.complete)
+        assert repr(out.attrs) == repr(reference.attrs)
+        outcomes["same"] += 1
+    assert outcomes["refused"] > 50  # the damage was real

@@ -25,6 +25,9 @@ start of the run::
                                       (angles in radians) about the primary named in the
                                       ``primary`` attribute of /elements; nan for the primary
     /events/log             scalar UTF-8 JSON: the propagator's event log (written on close)
+    /metadata_digest        (32,) uint8: SHA-256 of the root and group attributes, body names
+                            and radii, the scenario text and the event log (canonical JSON; see
+                            _metadata_digest)
 
 The file is written in HDF5 single-writer/multiple-reader mode, so it stays readable while a
 run writes it and after a run is killed.  The snapshot datasets carry a Fletcher-32 checksum
@@ -58,6 +61,48 @@ def _h5py():
     except ImportError as exc:  # pragma: no cover - h5py is a hard dependency
         raise ImportError("HDF5 output needs h5py: pip install h5py") from exc
     return h5py
+
+
+def _canonical(value: Any) -> Any:
+    """A JSON-able, exact, version-independent form of an attribute or small dataset value."""
+    if isinstance(value, bytes):
+        return value.decode("utf-8", "replace")
+    if isinstance(value, np.ndarray):
+        return [_canonical(v) for v in value.tolist()]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float):
+        return value.hex()
+    if isinstance(value, (list, tuple)):
+        return [_canonical(v) for v in value]
+    return value
+
+
+def _metadata_digest(f) -> np.ndarray:
+    """SHA-256 of everything outside the chunked datasets: attributes, names, radii, scenario.
+
+    HDF5 checksums its object headers but not attribute heaps or contiguous data, so the
+    reader checks this digest (kept in the checksummed /metadata_digest) instead.
+    """
+    import hashlib
+
+    record = {"attrs": {k: _canonical(v) for k, v in f.attrs.items()},
+              "groups": {g: {k: _canonical(v) for k, v in f[g].attrs.items()}
+                         for g in ("snapshots", "elements", "diagnostics") if g in f},
+              "names": _canonical(f["bodies/names"][()]), "radius": _canonical(f["bodies/radius"][()]),
+              "scenario": _canonical(f["scenario"][()]),
+              "events": _canonical(f["events/log"][()]) if "events/log" in f else None}
+    text = json.dumps(record, sort_keys=True, separators=(",", ":"))
+    return np.frombuffer(hashlib.sha256(text.encode("utf-8")).digest(), dtype=np.uint8)
+
+
+def _seal(f) -> None:
+    """Write (or rewrite) /metadata_digest for the file's current metadata."""
+    digest = _metadata_digest(f)
+    if "metadata_digest" in f:
+        f["metadata_digest"][...] = digest
+    else:
+        f.create_dataset("metadata_digest", data=digest, chunks=(32,), fletcher32=True)
 
 
 def _chunk_rows(n: int) -> int:
@@ -153,6 +198,7 @@ class OutputWriter:
             f["elements"].attrs["angle_unit"] = "radian"
         f["snapshots"].attrs["time_unit"] = str(f.attrs.get("time_unit", ""))
         f.create_group("events")
+        _seal(f)
 
     @property
     def count(self) -> int:
@@ -213,6 +259,7 @@ class OutputWriter:
                 del events["log"]
             events.create_dataset("log", data=json.dumps(event_log or []), dtype=h5py.string_dtype("utf-8"))
             f.attrs["complete"] = True
+            _seal(f)
 
     def abandon(self) -> None:
         """Flush and close without marking the file complete (interrupted runs)."""
@@ -249,9 +296,10 @@ class OutputWriter:
                 for key, value in source.attrs.items():
                     dest.attrs[key] = value
                 dest.attrs["complete"] = False
+                dest.create_group("events")
                 for key in ("scenario", "bodies/names", "bodies/radius"):
                     source.copy(source[key], dest, name=key)
-                for group in ("snapshots", "elements", "events", "diagnostics"):
+                for group in ("snapshots", "elements", "diagnostics"):
                     if group in source:
                         g = dest.require_group(group)
                         for key, value in source[group].attrs.items():
@@ -266,7 +314,8 @@ class OutputWriter:
                     for start in range(0, cursor, block):
                         stop = min(cursor, start + block)
                         out[start:stop] = src[start:stop]
-        except (OSError, KeyError, ValueError) as exc:
+                _seal(dest)
+        except (OSError, KeyError, ValueError, TypeError, RuntimeError, UnicodeDecodeError) as exc:
             if isinstance(exc, FileFormatError):
                 raise
             if os.path.exists(path + ".rebuild"):
@@ -294,12 +343,12 @@ def _open_for_reading(path: str):
         raise FileFormatError(f"output file {path} does not exist")
     try:
         return h5py.File(path, "r", libver="latest")
-    except OSError as exc:
+    except (OSError, KeyError, ValueError, RuntimeError) as exc:
         first = str(exc)
     if "open for write" in first or "consistency flags" in first:
         try:  # single-writer/multiple-reader: readable while (or after) a writer had it open
             return h5py.File(path, "r", libver="latest", swmr=True)
-        except OSError:
+        except (OSError, KeyError, ValueError, RuntimeError):
             pass
     with open(path, "rb") as fh:
         magic = fh.read(8)
@@ -322,9 +371,13 @@ def _check_format(f, path: str) -> None:
                               f"this version {__version__} reads up to {FORMAT_VERSION}); upgrade to read it")
     if version < 1:
         raise FileFormatError(f"{path} has an invalid output format version {version}")
-    for key in ("snapshots/time", "snapshots/position", "bodies/names"):
+    for key in ("snapshots/time", "snapshots/position", "bodies/names", "bodies/radius", "scenario",
+                "metadata_digest"):
         if key not in f:
             raise FileFormatError(f"{path} is damaged: dataset /{key} is missing")
+    if not np.array_equal(f["metadata_digest"][()], _metadata_digest(f)):
+        raise FileFormatError(f"{path} is damaged: its attributes, body names, radii or scenario text do "
+                              "not match their recorded SHA-256 digest; it was not loaded")
 
 
 @dataclass
@@ -392,8 +445,8 @@ def open_output(path: str | os.PathLike, snapshots: slice | None = None) -> Outp
     path = os.fspath(path)
     f = _open_for_reading(path)
     try:
-        _check_format(f, path)
         try:
+            _check_format(f, path)
             count = int(f["snapshots/time"].shape[0])
             start, stop, stride = (0, count, 1) if snapshots is None else snapshots.indices(count)
             if stride < 1:
@@ -434,7 +487,7 @@ def open_output(path: str | os.PathLike, snapshots: slice | None = None) -> Outp
                 elements=elements, elements_primary=primary,
                 scenario=_text(f["scenario"][()]) if "scenario" in f else "",
                 event_log=event_log, complete=bool(f.attrs.get("complete", False)))
-        except (OSError, KeyError, ValueError, TypeError) as exc:
+        except (OSError, KeyError, ValueError, TypeError, RuntimeError, UnicodeDecodeError) as exc:
             if isinstance(exc, FileFormatError):
                 raise
             raise FileFormatError(f"output file {path} is damaged: {exc}") from None
