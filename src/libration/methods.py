@@ -150,13 +150,19 @@ class Integrator:
 
     def memory(self) -> dict[str, Any]:
         """Everything needed to continue bit for bit (flat dict of arrays and scalars)."""
+        # The event configuration also carries the detector's memory (which conditions are
+        # ongoing), so a restart neither repeats nor misses an event.
         return {"mass": self.mass.copy(), "position": self.position.copy(),
-                "velocity": self.velocity.copy(), "radius": self.radius.copy()}
+                "velocity": self.velocity.copy(), "radius": self.radius.copy(),
+                "event_config": self.event_config.copy()}
 
     def restore(self, memory: dict[str, Any]) -> None:
         """Inverse of :meth:`memory`."""
         for key in ("mass", "position", "velocity", "radius"):
             setattr(self, key, np.array(memory[key], dtype=np.float64, order="C"))
+        config = memory.get("event_config")
+        if config is not None and np.asarray(config).size == self.event_config.size:
+            self.event_config = np.array(config, dtype=np.uint8, order="C")
 
 
 def raise_for_status(report: StepReport) -> None:
