@@ -259,3 +259,15 @@ def test_edited_scenarios_parse_or_fail_with_a_scenario_error(edits):
         scenario.system()
     except ScenarioError as exc:
         assert str(exc).startswith("edited.toml")
+
+
+def test_events_and_options_reach_the_propagator_or_name_their_table():
+    scenario = sc.parse(BASE + '\n[events]\ncollision = "merge"\nescape_distance = 50.0\n', "ev.toml")
+    p = scenario.propagator()
+    assert p.event_settings.collision == "merge" and p.event_settings.escape_distance == 50.0
+    bad = sc.parse(BASE + '\n[events]\ncolision = "merge"\n', "ev.toml")
+    with pytest.raises(ScenarioError, match=r"ev\.toml, line 44: \[events\]: .*'colision'"):
+        bad.propagator()
+    options = sc.parse(_edit(31, "step = 0.01\n[integrator.options]\nflavour = 3"), "op.toml")
+    with pytest.raises(ScenarioError, match=r"op\.toml, line 29: \[integrator\]: .*flavour"):
+        options.propagator()
