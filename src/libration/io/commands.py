@@ -24,9 +24,9 @@ def _say(text: str) -> None:
 def _finish(result) -> int:
     from .runner import STATUS_DONE, STATUS_INTERRUPTED
 
-    units = ""
-    _say(f"{result.status}: time {result.time!r}, {result.steps:,} steps, {result.snapshots} snapshots, "
-         f"relative energy error {result.energy_error:.3e}, {result.wall_seconds:.1f} s wall{units}")
+    snapshots = f", {result.snapshots} snapshots" if result.output else ""
+    _say(f"{result.status}: time {result.time!r}, {result.steps:,} steps{snapshots}, "
+         f"relative energy error {result.energy_error:.3e}, {result.wall_seconds:.2f} s wall")
     if result.output:
         _say(f"output: {result.output}  (inspect with `libration info {result.output}`, "
              f"`libration plot {result.output}`)")
