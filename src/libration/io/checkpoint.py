@@ -288,6 +288,8 @@ def _read_one(path: str) -> tuple[dict, dict]:
         raise FileFormatError(f"checkpoint {path} does not exist") from None
     except IsADirectoryError:
         raise FileFormatError(f"checkpoint {path} is a directory, not a file") from None
+    except OSError as exc:
+        raise FileFormatError(f"cannot read checkpoint {path}: {exc.strerror or exc}") from None
     return decode(data, path)
 
 

@@ -192,6 +192,22 @@ def write_demo(path: str, overwrite: bool = False) -> int:
     return EXIT_OK
 
 
+def _file_errors(command):
+    """Report operating-system errors (permissions, full disk, missing directory) in one line."""
+    import functools
+
+    @functools.wraps(command)
+    def wrapper(args: argparse.Namespace) -> int:
+        try:
+            return command(args)
+        except OSError as exc:
+            where = f" {exc.filename}" if getattr(exc, "filename", None) else ""
+            print(f"libration: error:{where} {exc.strerror or exc}", file=sys.stderr)
+            return EXIT_USAGE
+
+    return wrapper
+
+
 def add_commands(commands) -> None:
     """Add run, resume, info and plot to the ``libration`` sub-command parser."""
     run = commands.add_parser("run", help="run a scenario file (TOML) with output, checkpoints and progress")
@@ -203,20 +219,20 @@ def add_commands(commands) -> None:
                      help="checkpoint file (default: [checkpoint] file, else SCENARIO.ckpt)")
     run.add_argument("--overwrite", action="store_true", help="start again even if the checkpoint exists")
     run.add_argument("--quiet", action="store_true", help="no progress bar")
-    run.set_defaults(func=cmd_run)
+    run.set_defaults(func=_file_errors(cmd_run))
 
     resume = commands.add_parser("resume", help="continue a run exactly from its checkpoint")
     resume.add_argument("checkpoint", help="checkpoint file written by `libration run`")
     resume.add_argument("--until", type=float, default=None, help="a new final time (extends the run)")
     resume.add_argument("--quiet", action="store_true", help="no progress bar")
-    resume.set_defaults(func=cmd_resume)
+    resume.set_defaults(func=_file_errors(cmd_resume))
 
     info = commands.add_parser("info", help="summarise an output (.h5) or checkpoint file")
     info.add_argument("file")
-    info.set_defaults(func=cmd_info)
+    info.set_defaults(func=_file_errors(cmd_info))
 
     plot = commands.add_parser("plot", help="PNG of orbits, energy error and a/e/i against time (needs matplotlib)")
     plot.add_argument("file", help="output file (.h5)")
     plot.add_argument("-o", "--output", default=None, help="PNG file (default: FILE with .png)")
     plot.add_argument("--particles", type=int, default=500, help="test particles drawn at most (default 500)")
-    plot.set_defaults(func=cmd_plot)
+    plot.set_defaults(func=_file_errors(cmd_plot))
