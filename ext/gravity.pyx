@@ -145,8 +145,11 @@ def _accelerations(int isa, position, mass, Py_ssize_t n_active, double G, doubl
         scratch = workspace(n)
     if out is None:
         out = np.empty((n, 3), dtype=np.float64)
-    elif out.shape != (n, 3):
-        raise ValidationError(f"out must have shape ({n}, 3), got {out.shape}")
+    elif (not isinstance(out, np.ndarray) or out.shape != (n, 3) or out.dtype != np.float64
+          or not out.flags.c_contiguous or not out.flags.writeable):
+        raise ValidationError(
+            f"out must be a writeable C-contiguous float64 array of shape ({n}, 3), got "
+            f"{type(out).__name__} {getattr(out, 'dtype', '')} {getattr(out, 'shape', '')}")
     if n == 0:
         return out
     cdef const double[:, ::1] pos = position

@@ -279,9 +279,13 @@ class TestValidation:
         with pytest.raises(ValidationError, match=r"isa must be one of"):
             _gravity.accelerations_with_isa("neon", np.eye(3), np.ones(3), 3, 1.0)
 
-    def test_out_shape(self):
-        with pytest.raises(ValidationError, match=r"out must have shape \(3, 3\)"):
-            _gravity.accelerations(np.eye(3), np.ones(3), 3, 1.0, out=np.empty((2, 3)))
+    @pytest.mark.parametrize("out", [np.empty((2, 3)), np.empty((3, 3), dtype=np.float32),
+                                     np.empty((3, 6))[:, ::2], [[0.0] * 3] * 3],
+                             ids=["shape", "dtype", "strided", "list"])
+    def test_out_array(self, out):
+        with pytest.raises(ValidationError, match=r"out must be a writeable C-contiguous float64 "
+                                                  r"array of shape \(3, 3\)"):
+            _gravity.accelerations(np.eye(3), np.ones(3), 3, 1.0, out=out)
 
     def test_validation_errors_are_value_errors(self):
         assert issubclass(ValidationError, ValueError)
