@@ -203,4 +203,6 @@ def format_table(rows: Sequence[dict]) -> str:
     text += ["  ".join(c.rjust(w) for c, w in zip(cells, widths)) for cells in lines]
     text.append(f"loop variant: {_gravity.best_isa()}; OpenMP: {'yes' if _gravity.HAVE_OPENMP else 'no'}; "
                 f"interactions = sources x bodies - self pairs; numpy = chunked broadcast, same run")
+    if 2 in thread_counts:
+        text.append("2T/1T is meaningful only while no other work runs on the CPUs")
     return "\n".join(text)
