@@ -14,7 +14,8 @@ A scenario (schema version 1) has these tables; every key is optional unless mar
                     G * (m_primary + m_body); missing angles are 0)
     [[population]]  test particles drawn at random: name (required; particles are named
                     <name>00000, <name>00001, ...), count (required, >= 1), primary (required),
-                    seed (required, integer >= 0), and the six elements, each either a number
+                    seed (required, integer >= 0), radius (>= 0, every particle), and the six
+                    elements (semi_major_axis required; the others default to 0), each either a number
                     or a distribution table:
                         { distribution = "uniform",    min = ..., max = ... }
                         { distribution = "loguniform", min = ..., max = ... }   (min > 0)
