@@ -41,9 +41,13 @@ def best_isa():
     return next(name for name, value in ISA_CODES.items() if value == code)
 
 
-def workspace(Py_ssize_t n):
-    """Scratch buffer for the kernel with ``n`` bodies (one per propagator, never shared)."""
-    return np.zeros(7 * max(n, 1), dtype=np.float64)
+def workspace(Py_ssize_t n_active):
+    """Scratch buffer for the kernel with ``n_active`` massive bodies (one per propagator, never shared).
+
+    The kernel keeps the sources (massive bodies) in structure-of-arrays form there:
+    4 * n_active doubles, so test particles cost no scratch memory at all.
+    """
+    return np.zeros(4 * max(n_active, 1), dtype=np.float64)
 
 
 def _as_state(position, mass, Py_ssize_t n_active):
@@ -141,8 +145,8 @@ def _accelerations(int isa, position, mass, Py_ssize_t n_active, double G, doubl
     position, mass = _as_state(position, mass, n_active)
     _check_threads(threads)
     cdef Py_ssize_t n = position.shape[0]
-    if scratch is None or scratch.shape[0] < 7 * n:
-        scratch = workspace(n)
+    if scratch is None or scratch.shape[0] < 4 * n_active:
+        scratch = workspace(n_active)
     if out is None:
         out = np.empty((n, 3), dtype=np.float64)
     elif (not isinstance(out, np.ndarray) or out.shape != (n, 3) or out.dtype != np.float64

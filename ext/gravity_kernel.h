@@ -364,8 +364,8 @@ static lb_gravity_variant lb_gravity_variant_for(int isa)
 
 /* Fill acc (n x 3, row-major) with the accelerations of all n bodies from the
  * n_active massive ones, using the tile variant for instruction set isa (which the
- * caller has checked with lb_gravity_isa_available).  soa is scratch of 7 * n doubles
- * owned by the caller (4 * n_active are used).  Returns 0, or 1 with *bad set to the first
+ * caller has checked with lb_gravity_isa_available).  soa is scratch of 4 * n_active
+ * doubles owned by the caller (the sources in structure-of-arrays form).  Returns 0, or 1 with *bad set to the first
  * body whose acceleration is not finite (it shares its position with a massive body,
  * or the input held a non-finite value). */
 static int lb_gravity_accelerations_isa(int isa, const double *position, const double *mass,
@@ -373,7 +373,7 @@ static int lb_gravity_accelerations_isa(int isa, const double *position, const d
                                         double *acc, double *soa, int threads, ptrdiff_t *bad)
 {
     const lb_gravity_variant v = lb_gravity_variant_for(isa);
-    double *x = soa, *y = soa + n, *z = soa + 2 * n, *gm = soa + 3 * n;
+    double *x = soa, *y = soa + n_active, *z = soa + 2 * n_active, *gm = soa + 3 * n_active;
     for (ptrdiff_t j = 0; j < n_active; j++) {
         x[j] = position[3 * j];
         y[j] = position[3 * j + 1];

@@ -75,7 +75,7 @@ def run_composition(double[:, ::1] position, double[:, ::1] velocity, const doub
         raise ValueError("position, velocity, mass and radius must describe the same bodies")
     if kick_weights.shape[0] != stages + 1:
         raise ValueError("kick_weights must have len(drift_weights) + 1 entries")
-    if acc_scratch.shape[0] < 3 * n or soa_scratch.shape[0] < 7 * n:
+    if acc_scratch.shape[0] < 3 * n or soa_scratch.shape[0] < 4 * n_active:
         raise ValueError("scratch buffers too small")
     if <size_t>event_config.shape[0] < sizeof(lb_event_config):
         raise ValueError(f"event_config must hold {sizeof(lb_event_config)} bytes")

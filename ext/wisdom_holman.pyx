@@ -317,11 +317,13 @@ def run_democratic(double[:, ::1] position, double[:, ::1] velocity, const doubl
     cdef Py_ssize_t done = 0, body_i = -1, body_j = -1
     cdef int status = STATUS_OK
     if (velocity.shape[0] != n or mass.shape[0] != n or radius.shape[0] != n
-            or acc.shape[0] != n or soa.shape[0] < 7 * n or sync_position.shape[0] != n
-            or sync_velocity.shape[0] != n):
+            or acc.shape[0] != n or soa.shape[0] < 4 * n_active or sync_position.shape[0] not in (0, n)
+            or sync_velocity.shape[0] != sync_position.shape[0]):
         raise ValueError("arrays must describe the same bodies")
     _event_pointer_ok(event_config)
     cdef const lb_event_config* events = <const lb_event_config*> &event_config[0]
+    if events.enabled and sync_position.shape[0] != n:
+        raise ValueError("event checks need sync_position and sync_velocity with one row per body")
     if n <= 1 or n_steps <= 0:
         return STATUS_OK, max(n_steps, 0), -1, -1
     with nogil:
@@ -373,11 +375,13 @@ def run_jacobi(double[:, ::1] position, double[:, ::1] velocity, const double[::
     cdef int status = STATUS_OK
     if (velocity.shape[0] != n or mass.shape[0] != n or radius.shape[0] != n
             or eta.shape[0] != n or gm.shape[0] != n or bary.shape[0] != n
-            or acc.shape[0] != n or soa.shape[0] < 7 * n or sync_position.shape[0] != n
-            or sync_velocity.shape[0] != n):
+            or acc.shape[0] != n or soa.shape[0] < 4 * n_active or sync_position.shape[0] not in (0, n)
+            or sync_velocity.shape[0] != sync_position.shape[0]):
         raise ValueError("arrays must describe the same bodies")
     _event_pointer_ok(event_config)
     cdef const lb_event_config* events = <const lb_event_config*> &event_config[0]
+    if events.enabled and sync_position.shape[0] != n:
+        raise ValueError("event checks need sync_position and sync_velocity with one row per body")
     if n <= 1 or n_steps <= 0:
         return STATUS_OK, max(n_steps, 0), -1, -1
     with nogil:

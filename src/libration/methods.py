@@ -115,7 +115,7 @@ class Integrator:
             raise MethodError(f"method {self.name!r} has no option {unknown[0]!r}; its options are: {known}")
         self.options = {**self.option_defaults, **options}
         self._acc = np.zeros((n, 3))
-        self._soa = _gravity.workspace(n)
+        self._soa = _gravity.workspace(self.n_active)
 
     # ------------------------------------------------------------------ stepping
     def take_steps(self, n: int) -> StepReport:

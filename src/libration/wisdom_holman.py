@@ -150,8 +150,10 @@ class WisdomHolman(Integrator):
                               f"0 (got {n} bodies, n_active={self.n_active})")
         self._jacobi = coordinates == "jacobi"
         self._bary = np.zeros((n, 3))
-        self._sync_position = np.zeros((n, 3))
-        self._sync_velocity = np.zeros((n, 3))
+        # synchronised barycentric copies for the per-step event checks (only when asked for)
+        rows = n if self.events is not None else 0
+        self._sync_position = np.zeros((rows, 3))
+        self._sync_velocity = np.zeros((rows, 3))
         massive = self.mass[: self.n_active]
         total = math.fsum(massive)
         self._eta = np.ascontiguousarray(np.concatenate(
@@ -169,13 +171,15 @@ class WisdomHolman(Integrator):
         self._pending = 0.0          # kick time not yet applied to the velocities
         self._corrector_step = float(self.step) if self.step is not None else 0.0
         # internal coordinates
-        bary_pos = self.position - self._cm_position
-        bary_vel = self.velocity - self._cm_velocity
         if self._jacobi:
+            bary_pos = self.position - self._cm_position
             self._q = _wisdom_holman.jacobi_from_barycentric(np.ascontiguousarray(bary_pos), self.mass,
                                                              self._eta, self.n_active)
+            del bary_pos
+            bary_vel = self.velocity - self._cm_velocity
             self._p = _wisdom_holman.jacobi_from_barycentric(np.ascontiguousarray(bary_vel), self.mass,
                                                              self._eta, self.n_active)
+            del bary_vel
             self._q[0] = 0.0
             self._p[0] = 0.0
             if corrector:
@@ -183,10 +187,16 @@ class WisdomHolman(Integrator):
         else:
             q = self.position - self.position[0]
             q[0] = 0.0
-            p = bary_vel.copy()
+            p = self.velocity - self._cm_velocity
             p[0] = 0.0
             self._q = np.ascontiguousarray(q)
             self._p = np.ascontiguousarray(p)
+        # The evolving state lives in _q and _p from here on: drop the base class's input copies
+        # (and the Jacobi-only scratch for the other map) so the run holds one copy of the state.
+        self.position = np.empty((0, 3))
+        self.velocity = np.empty((0, 3))
+        if not self._jacobi:
+            self._bary = np.empty((0, 3))
 
     # ------------------------------------------------------------------ pieces
     def _kick(self, q: np.ndarray, p: np.ndarray, dt: float) -> None:
