@@ -13,12 +13,7 @@ import numpy as np
 from common cimport STATUS_OK, STATUS_SINGULAR, STATUS_EVENT
 from forces cimport lb_gravity_accelerations
 
-cdef extern from "events_kernel.h" nogil:
-    ctypedef struct lb_event_config:
-        int enabled
-    int lb_check_events(const double* position, const double* velocity, const double* mass,
-                        const double* radius, Py_ssize_t n, Py_ssize_t n_active, double G,
-                        const lb_event_config* config, Py_ssize_t* body_i, Py_ssize_t* body_j)
+from events cimport lb_event_config, lb_check_events
 
 
 cdef int composition_loop(double* pos, double* vel, const double* mass, const double* radius,

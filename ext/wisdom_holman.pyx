@@ -25,12 +25,7 @@ from common cimport STATUS_OK, STATUS_SINGULAR, STATUS_NO_CONVERGENCE, STATUS_EV
 from forces cimport lb_gravity_accelerations
 from kepler cimport lb_kepler_drift_many
 
-cdef extern from "events_kernel.h" nogil:
-    ctypedef struct lb_event_config:
-        int enabled
-    int lb_check_events(const double* position, const double* velocity, const double* mass,
-                        const double* radius, Py_ssize_t n, Py_ssize_t n_active, double G,
-                        const lb_event_config* config, Py_ssize_t* body_i, Py_ssize_t* body_j)
+from events cimport lb_event_config, lb_check_events
 
 
 # Below this many bodies (and with no test particles) the kick uses the symmetric pair loop
