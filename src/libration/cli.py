@@ -25,8 +25,25 @@ def _cmd_demo(args: argparse.Namespace) -> int:
         return write_demo(args.write)
     from .demo import run_demo
 
-    result = run_demo(span_days=args.years * 365.25, step_days=args.step, method=args.method,
-                      belt_count=args.particles)
+    bar = None
+    if sys.stderr.isatty():  # a progress bar on a terminal, nothing in logs
+        from tqdm import tqdm
+
+        bar = tqdm(total=100, desc="demo", unit="%", leave=False, file=sys.stderr)
+    done = [0]
+
+    def progress(fraction: float) -> None:
+        if bar is not None:
+            step = int(round(100 * fraction)) - done[0]
+            bar.update(step)
+            done[0] += step
+
+    try:
+        result = run_demo(span_days=args.years * 365.25, step_days=args.step, method=args.method,
+                          belt_count=args.particles, progress=progress)
+    finally:
+        if bar is not None:
+            bar.close()
     print(result.summary())
     return EXIT_OK
 
@@ -53,7 +70,8 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     demo = commands.add_parser("demo", help="propagate the embedded invented planetary system and summarise")
-    demo.add_argument("--years", type=float, default=100.0, help="simulated span in years (default 100)")
+    demo.add_argument("--years", type=float, default=400.0,
+                      help="simulated span in years (default 400: about ten seconds on one core)")
     demo.add_argument("--step", type=float, default=2.0, help="step in days (default 2)")
     demo.add_argument("--method", default=None, help="stepping method (default: wisdom-holman)")
     demo.add_argument("--particles", type=int, default=None, help="belt test particles (default 3000)")

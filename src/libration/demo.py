@@ -61,14 +61,12 @@ def run_demo(span_days: float = 36525.0, step_days: float = 2.0, method: str | N
              belt_count: int | None = None, progress=None) -> DemoResult:
     """Propagate the demo system and return a :class:`DemoResult`.
 
-    ``method`` defaults to the Wisdom–Holman map where it is available, else ``yoshida4``.
+    ``method`` defaults to the Wisdom–Holman map (democratic heliocentric).
     ``progress`` is an optional callable ``progress(fraction)``.
     """
-    from .methods import METHODS
-
     system = demo_system(belt_count)
     if method is None:
-        method = "wisdom-holman" if "wisdom-holman" in METHODS else "leapfrog"
+        method = "wisdom-holman"
     propagator = Propagator(system, method, step=step_days)
     energy0 = system.energy()
     start = _time.perf_counter()
