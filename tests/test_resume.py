@@ -184,7 +184,7 @@ def _wait_for(path: str, proc: subprocess.Popen, limit: float = 60.0) -> None:
 def test_killed_and_resumed_run_is_bit_identical(method, tmp_path):
     seed = random.SystemRandom().randrange(2**32)
     rng = random.Random(seed)
-    until = _calibrated_until(method, 0.35)
+    until = _calibrated_until(method, 0.8)  # ample margin: the kill must land before the end
     note = f"(method {method}, seed {seed}, until {until})"
 
     # The uninterrupted run, and the same span in one advance() call.
