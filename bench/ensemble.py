@@ -116,7 +116,7 @@ def main() -> None:
                 print("dask.distributed is not installed: no Dask run")
             else:
                 cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                                   host="127.0.0.1", dashboard_address=None,
+                                                   host="127.0.0.1", dashboard_address="127.0.0.1:0",
                                                    silence_logs=logging.ERROR)
                 try:
                     with distributed.Client(cluster) as client:

@@ -77,7 +77,7 @@ def test_sequential_pool_and_dask_give_identical_members(tmp_path):
     assert_bitwise_equal(sequential, pooled)
 
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                       dashboard_address=None, silence_logs=logging.ERROR)
+                                       dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR)
     try:
         with distributed.Client(cluster) as client:
             on_dask = small_grid(tmp_path / "dask")
