@@ -39,6 +39,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import os
+import threading
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -172,6 +173,14 @@ class OutputWriter:
         self.capacity = int(max(1, min(4096, _BUFFER_BYTES // max(row_bytes, 1)) // rows)) * rows
         self._buffer = {key: np.empty((self.capacity,) + shape, dtype) for key, (shape, dtype) in self._rows.items()}
         self._buffered = 0
+        # A full buffer is written by a background thread while the run goes on (the kernels
+        # release the GIL); at most one write is in flight, and flush() waits for it, so what
+        # a checkpoint records as written is on disk.
+        self._spare: dict[str, np.ndarray] | None = None
+        self._writer: threading.Thread | None = None
+        self._in_flight = 0
+        self._in_flight_buffer: dict[str, np.ndarray] | None = None
+        self._write_error: BaseException | None = None
         self._column = {name: i for i, name in enumerate(self.names)}
         self._same_names: list[str] | None = None
 
@@ -202,8 +211,8 @@ class OutputWriter:
 
     @property
     def count(self) -> int:
-        """Snapshots accepted so far (written plus buffered)."""
-        return self.written + self._buffered
+        """Snapshots accepted so far (written, being written and buffered)."""
+        return self.written + self._in_flight + self._buffered
 
     def append(self, row: dict[str, Any], names: list[str] | None = None) -> None:
         """Add one snapshot.  ``row`` maps each growable dataset's path in the schema
@@ -231,19 +240,56 @@ class OutputWriter:
                 buf[i] = value
         self._buffered += 1
         if self._buffered == self.capacity:
-            self.flush()
+            self._write_in_background()
+
+    def _write_rows(self, buffer: dict[str, np.ndarray], start: int, k: int) -> None:
+        for key, dataset in self._datasets.items():  # 'snapshots/time' comes last
+            dataset.resize(start + k, axis=0)
+            dataset[start:start + k] = buffer[key][:k]
+        self.file.flush()
+
+    def _wait(self) -> None:
+        """Wait for the write in flight (if any); re-raise its error here."""
+        if self._writer is None:
+            return
+        self._writer.join()
+        self._writer = None
+        self.written += self._in_flight
+        self._in_flight = 0
+        self._spare, self._in_flight_buffer = self._in_flight_buffer, None
+        if self._write_error is not None:
+            error, self._write_error = self._write_error, None
+            raise error
+
+    def _write_in_background(self) -> None:
+        self._wait()
+        k, buffer = self._buffered, self._buffer
+        if self._spare is None:
+            self._spare = {key: np.empty_like(value) for key, value in buffer.items()}
+        self._buffer, self._spare = self._spare, None
+        self._buffered = 0
+        self._in_flight, self._in_flight_buffer = k, buffer
+        start = self.written
+
+        def write() -> None:
+            try:
+                self._write_rows(buffer, start, k)
+            except BaseException as exc:  # handed to the main thread by _wait()
+                self._write_error = exc
+
+        self._writer = threading.Thread(target=write, name="libration-output", daemon=True)
+        self._writer.start()
 
     def flush(self) -> None:
         """Write the buffered snapshots and flush the file (data on disk when this returns)."""
+        self._wait()
         k = self._buffered
         if k:
-            start = self.written
-            for key, dataset in self._datasets.items():  # 'snapshots/time' comes last
-                dataset.resize(start + k, axis=0)
-                dataset[start:start + k] = self._buffer[key][:k]
+            self._write_rows(self._buffer, self.written, k)
             self.written += k
             self._buffered = 0
-        self.file.flush()
+        else:
+            self.file.flush()
 
     def close(self, event_log: list | None = None) -> None:
         """Flush, leave single-writer mode, record the event log and mark the file complete."""
