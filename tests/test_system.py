@@ -99,3 +99,10 @@ def test_barycentric_frame_and_test_particles_carry_no_mass():
     assert s.n_active == 2
     # the test particle adds nothing to the energy
     assert s.energy() == pytest.approx(lb.System(s.mass[:2], s.position[:2], s.velocity[:2]).energy())
+
+
+def test_barycentric_overflow_is_refused_not_returned_as_inf():
+    # m v overflows float64 (max ~1.8e308): the frame change must say so, never return inf
+    s = lb.System([1e300, 1.0], [[0, 0, 0], [1, 0, 0]], [[0, 1e10, 0], [0, 0, 0]])
+    with pytest.raises(ValidationError, match="centre of mass overflows"):
+        s.barycentric()

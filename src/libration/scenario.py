@@ -249,9 +249,9 @@ class Scenario:
             system = System(np.array([mass[i] for i in order]), np.array([position[i] for i in order]),
                             np.array([velocity[i] for i in order]), self.units, [names[i] for i in order],
                             np.array([radius[i] for i in order]))
+            return system.barycentric()
         except ValidationError as exc:
             raise self._error(("body",), f"the bodies do not form a valid system: {exc}") from None
-        return system.barycentric()
 
     def propagator(self, system: System | None = None):
         """Create the :class:`~libration.Propagator` this scenario describes."""

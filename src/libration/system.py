@@ -180,7 +180,12 @@ class System:
 
     def barycentric(self) -> System:
         """A copy moved to the barycentric frame (centre of mass at rest at the origin)."""
-        r, v = self.center_of_mass()
+        with np.errstate(over="ignore", invalid="ignore"):
+            r, v = self.center_of_mass()
+        if not (np.isfinite(r).all() and np.isfinite(v).all()):
+            raise ValidationError(f"the centre of mass overflows (position {r.tolist()}, velocity "
+                                  f"{v.tolist()}): masses, positions or velocities are too large for "
+                                  f"float64; rescale the units")
         return System(self.mass, self.position - r, self.velocity - v, self.units, self.names, self.radius)
 
     # ---------------------------------------------------------------- elements
