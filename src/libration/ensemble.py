@@ -340,7 +340,7 @@ class _Tracker:
         t = propagator.time
         if not (np.isfinite(system.position).all() and np.isfinite(system.velocity).all()):
             raise FloatingPointError(f"the state became non-finite at time {t!r}")
-        energy = system.energy(propagator._settings["softening"])
+        energy = system.energy(propagator.softening)
         if math.isnan(self.energy0):
             self.energy0 = energy
             self.angular_momentum0 = system.angular_momentum()
@@ -435,11 +435,11 @@ class _MemberOutput:
     @classmethod
     def create(cls, task: Mapping[str, Any], propagator, tracker: _Tracker) -> _MemberOutput:
         from .io.output import OutputWriter
-        from .io.runner import _attrs
+        from .io.runner import output_attributes
 
         state = cls._state(task, propagator, tracker)
         writer = OutputWriter(os.path.join(task["directory"], cls.FILENAME), propagator.names,
-                              propagator.integrator.radius, _attrs(propagator, state), "",
+                              propagator.integrator.radius, output_attributes(propagator, state), "",
                               state["elements_primary"])
         self = cls(task, writer)
         self.state = state
@@ -462,14 +462,14 @@ class _MemberOutput:
                 "t_start": settings["start"]}
 
     def sample(self, propagator, tracker: _Tracker, final: bool) -> None:
-        from .io.runner import _snapshot
+        from .io.runner import snapshot_row
 
         index = tracker.next_sample - 1
         if index == tracker.output_sample or not (final or index % self.stride == 0):
             return
         if self.state is None:
             self.state = self._state(self.task, propagator, tracker)
-        row, names = _snapshot(propagator, self.state)
+        row, names = snapshot_row(propagator, self.state)
         self.writer.append(row, names)
         tracker.output_sample = index
 

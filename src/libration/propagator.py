@@ -141,6 +141,16 @@ class Propagator:
         return self._settings["step"]
 
     @property
+    def tolerance(self) -> float | None:
+        """The relative tolerance (None for fixed-step methods)."""
+        return self._settings["tolerance"]
+
+    @property
+    def softening(self) -> float:
+        """The Plummer softening length, in the length unit."""
+        return self._settings["softening"]
+
+    @property
     def system(self) -> System:
         """A copy of the system at :attr:`time` (synchronised; the run is not affected)."""
         mass, position, velocity = self._state()

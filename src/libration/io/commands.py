@@ -68,7 +68,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     propagator = scenario.propagator(system)
     units = system.units
     how = f"step {propagator.step!r} {units.time}" if propagator.step is not None else \
-        f"tolerance {propagator._settings['tolerance']!r}"
+        f"tolerance {propagator.tolerance!r}"
     _say(f"{scenario.name}: {system.n:,} bodies ({system.n_active} massive), {propagator.method}, {how}, "
          f"from {propagator.time!r} to {until!r} {units.time}")
     if output:

@@ -128,16 +128,13 @@ class _Progress:
             self.bar.close()
 
 
-def _snapshot(propagator, state: dict[str, Any]) -> tuple[dict[str, Any], list[str]]:
-    from ..system import System
-
-    # The propagator's own synchronised copies: already validated, so no checks again.
-    mass, position, velocity = propagator._state()
-    system = System._trusted(mass, position, velocity, propagator.units, propagator.names,
-                             propagator.integrator.radius)
-    energy = system.energy(propagator._settings["softening"])
-    active = system.n_active  # test particles (mass 0) carry no angular momentum
-    momentum = np.einsum("i,ij->j", mass[:active], np.cross(position[:active], velocity[:active]))
+def snapshot_row(propagator, state: dict[str, Any]) -> tuple[dict[str, Any], list[str]]:
+    """One output row (schema paths -> values) for the propagator's current state, and the
+    names of the bodies it describes.  ``state`` holds the run's reference energy and angular
+    momentum and its element settings (see :func:`run`)."""
+    system = propagator.system  # synchronised copies; the run itself is untouched
+    energy = system.energy(propagator.softening)
+    momentum = system.angular_momentum()  # test particles (mass 0) contribute nothing
     e0, l0 = state["energy0"], np.asarray(state["angular_momentum0"])
     l0_norm = float(np.linalg.norm(l0))
     row: dict[str, Any] = {
@@ -223,7 +220,7 @@ def run(propagator, until: float, output: str | os.PathLike | None = None, every
         writer = None
         if state["output"] is not None:
             writer = OutputWriter(state["output"], propagator.names, propagator.integrator.radius,
-                                  _attrs(propagator, state), state["scenario_text"],
+                                  output_attributes(propagator, state), state["scenario_text"],
                                   state["elements_primary"] if state["elements"] else None)
     else:
         state = _state
@@ -276,7 +273,7 @@ def _new_state(propagator, until, output, every, checkpoint, checkpoint_interval
         "elements": bool(elements), "elements_primary": elements_primary,
         "scenario_text": scenario_text or "",
         "next_index": 0, "cursor": 0, "last_snapshot_time": None,
-        "energy0": float(system.energy(propagator._settings["softening"])),
+        "energy0": float(system.energy(propagator.softening)),
         "angular_momentum0": np.einsum("i,ij->j", system.mass[:system.n_active],
                                        np.cross(system.position[:system.n_active],
                                                 system.velocity[:system.n_active])),
@@ -284,7 +281,8 @@ def _new_state(propagator, until, output, every, checkpoint, checkpoint_interval
     }
 
 
-def _attrs(propagator, state) -> dict[str, Any]:
+def output_attributes(propagator, state) -> dict[str, Any]:
+    """Root attributes of an output file: units, G, method, options, step, span settings."""
     import json
 
     units = propagator.units
@@ -293,9 +291,8 @@ def _attrs(propagator, state) -> dict[str, Any]:
         "time_unit": units.time, "method": propagator.method,
         "options": json.dumps(propagator.options, sort_keys=True, default=str),
         "step": np.nan if propagator.step is None else float(propagator.step),
-        "tolerance": np.nan if propagator._settings.get("tolerance") is None
-        else float(propagator._settings["tolerance"]),
-        "softening": float(propagator._settings["softening"]),
+        "tolerance": np.nan if propagator.tolerance is None else float(propagator.tolerance),
+        "softening": float(propagator.softening),
         "every": float(state["every"]), "t_start": float(state["t_start"]),
     }
 
@@ -323,7 +320,7 @@ def _loop(p, state: dict[str, Any], writer: OutputWriter | None, progress: bool,
     def snapshot() -> None:
         if writer is None or state["last_snapshot_time"] == p.time:
             return
-        row, names = _snapshot(p, state)
+        row, names = snapshot_row(p, state)
         writer.append(row, names)
         state["last_snapshot_time"] = p.time
         state["cursor"] = writer.count
@@ -405,7 +402,7 @@ def _loop(p, state: dict[str, Any], writer: OutputWriter | None, progress: bool,
 
 
 def _energy_error(p, state: dict[str, Any]) -> float:
-    energy = p.system.energy(p._settings["softening"])
+    energy = p.system.energy(p.softening)
     e0 = state["energy0"]
     return (energy - e0) / abs(e0) if e0 != 0 else energy - e0
 
